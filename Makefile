@@ -1,0 +1,45 @@
+# tautline — build, test, benchmark and demo.
+# Every tool the build or tests need is installed from here (or .ci/run);
+# nothing installed by hand is assumed.
+
+GO            ?= go
+GOBIN         := $(shell $(GO) env GOPATH)/bin
+STATICCHECK   := honnef.co/go/tools/cmd/staticcheck@v0.8.2
+BENCHTIME     ?= 1s
+PKGS          := ./...
+
+.PHONY: all build test test-short vet fmt-check lint bench demo proto clean
+
+all: build
+
+build:
+	$(GO) build $(PKGS)
+	$(GO) build -o bin/ ./client/cmd/... ./server/cmd/... 2>/dev/null || true
+
+## test: the README's test command; CI runs it through .ci/run.
+test: fmt-check vet
+	$(GO) test -count=1 $(PKGS)
+
+vet:
+	$(GO) vet $(PKGS)
+
+fmt-check:
+	@out=$$(gofmt -l $$(git ls-files '*.go' | grep -v '\.pb\.go$$')); \
+	if [ -n "$$out" ]; then echo "gofmt would change:"; echo "$$out"; exit 1; fi
+
+lint: vet
+	$(GO) run $(STATICCHECK) $(PKGS)
+
+## bench: every benchmark with allocation counts. Quote the machine with a figure.
+bench:
+	$(GO) test -run '^$$' -bench . -benchmem -benchtime $(BENCHTIME) $(PKGS)
+
+## demo: the most complete thing that exists, on the built-in demo data.
+demo:
+	$(GO) test -count=1 -run 'Example' -v ./sim/
+
+proto:
+	@echo "no .proto files yet"
+
+clean:
+	rm -rf bin
