@@ -1,3 +1,5 @@
+//go:build tautline_cellwip
+
 package sim
 
 import (
