@@ -185,8 +185,9 @@ func TestSplineMatchesGonumClampedCubic(t *testing.T) {
 // Velocity and acceleration are the derivatives of position and velocity:
 // checked with gonum's diff/fd central differences inside segments. The
 // central formula is exact for quadratics (velocity) and has error
-// step²·p'''/6 for a cubic; with step 1e-5 s and |p'''| ≲ 10³ that is about
-// 2e-8, plus rounding ~1e-16/1e-5; tolerance 1e-6.
+// step² times a sixth of the third derivative for a cubic; with step 1e-5 s
+// and a third derivative below 10³ that is about 2e-8, plus rounding of
+// about 1e-16/1e-5; tolerance 1e-6.
 func TestSplineDerivativesMatchFiniteDifferences(t *testing.T) {
 	rnd := rand.New(rand.NewPCG(4, 5))
 	const n, channels = 8, 2
