@@ -38,8 +38,14 @@ bench:
 demo:
 	$(GO) test -count=1 -run 'Example' -v ./sim/
 
+## proto: regenerate proto/tautline/v1/*.pb.go with pinned tools (installs missing ones).
 proto:
-	@echo "no .proto files yet"
+	@GO=$(GO) sh proto/generate.sh
+
+## proto-check: fail if the committed generated code differs from what the pinned tools make.
+.PHONY: proto-check
+proto-check:
+	@GO=$(GO) sh proto/generate.sh -check
 
 clean:
 	rm -rf bin
