@@ -191,7 +191,7 @@ func (p *urdfParser) document() error {
 	for {
 		tok, at, err := p.next()
 		if err == io.EOF {
-			p.errs = append(p.errs, &FileError{File: p.file, Line: at.line, Col: at.col, Msg: "no <robot> element: this is not a URDF file"})
+			p.errs = append(p.errs, &FileError{File: p.file, Line: 1, Msg: "no <robot> element: this is not a URDF file"})
 			return errFatal
 		}
 		if err != nil {
@@ -203,7 +203,7 @@ func (p *urdfParser) document() error {
 		}
 	}
 	if root.name.Local != "robot" || root.name.Space != "" {
-		p.errAt(root.at, root.name.Local, "the root element is <%s>, a URDF file has <robot>", qualified(root.name))
+		p.errAt(root.at, p.rawName(root), "the root element is <%s>, a URDF file has <robot>", p.rawName(root))
 		return errFatal
 	}
 	p.u.Name, _ = attr(root, "name")
@@ -217,7 +217,7 @@ func (p *urdfParser) document() error {
 		}
 		switch {
 		case el.name.Space != "":
-			p.errAt(el.at, qualified(el.name), "namespaced element <%s>: expand xacro macros (or other extensions) before giving the file to tautline", qualified(el.name))
+			p.errAt(el.at, p.rawName(el), "namespaced element <%s>: expand xacro macros (or other extensions) before giving the file to tautline", p.rawName(el))
 		case el.name.Local == "link":
 			p.link(el)
 		case el.name.Local == "joint":
@@ -327,7 +327,7 @@ func (p *urdfParser) joint(el xmlElem) error {
 		cf := field + "/" + c.name.Local
 		switch {
 		case c.name.Space != "":
-			p.errAt(c.at, field+"/"+qualified(c.name), "namespaced element <%s> inside a joint: expand xacro macros (or other extensions) first", qualified(c.name))
+			p.errAt(c.at, field+"/"+p.rawName(c), "namespaced element <%s> inside a joint: expand xacro macros (or other extensions) first", p.rawName(c))
 			good = false
 		case c.name.Local == "origin":
 			if once(c, 0) {
@@ -508,11 +508,18 @@ func attr(el xmlElem, name string) (string, bool) {
 	return "", false
 }
 
-func qualified(n xml.Name) string {
-	if n.Space == "" {
-		return n.Local
+// rawName returns the element name as written in the start tag, prefix
+// included (the decoder replaces a declared prefix with its namespace URL).
+func (p *urdfParser) rawName(el xmlElem) string {
+	tag := p.data[el.at.off:el.end]
+	if len(tag) == 0 || tag[0] != '<' {
+		return el.name.Local
 	}
-	return n.Space + ":" + n.Local
+	end := 1
+	for end < len(tag) && !isXMLSpace(tag[end]) && tag[end] != '/' && tag[end] != '>' {
+		end++
+	}
+	return string(tag[1:end])
 }
 
 // errAt records an error at a position.
@@ -623,7 +630,8 @@ func (p *urdfParser) checkTree() {
 		return
 	}
 	// With at most one parent per link, a link whose parents never reach a
-	// link without parent lies on a loop.
+	// link without parent lies on a loop. Report the loop at the joint that
+	// closes it in reading order (the one furthest down the file).
 	for _, j := range u.Joints {
 		link, steps := j.Child, 0
 		for {
@@ -632,10 +640,24 @@ func (p *urdfParser) checkTree() {
 				break
 			}
 			link = u.Joints[k].Parent
-			if steps++; steps > len(u.Joints) {
-				p.errAt(j.childAt, "joint["+j.Name+"]/child@link", "the joints form a loop through link %q: URDF describes a tree", j.Child)
-				return
+			if steps++; steps <= len(u.Joints) {
+				continue
 			}
+			// link is on the loop now: go round it once.
+			last, names := k, []string{}
+			for l := link; ; {
+				m := parentOf[l]
+				names = append(names, strconv.Quote(l))
+				if u.Joints[m].Line > u.Joints[last].Line {
+					last = m
+				}
+				if l = u.Joints[m].Parent; l == link {
+					break
+				}
+			}
+			c := u.Joints[last]
+			p.errAt(c.childAt, "joint["+c.Name+"]/child@link", "the joints form a loop through links %s: URDF describes a tree", strings.Join(names, ", "))
+			return
 		}
 	}
 }
