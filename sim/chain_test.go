@@ -80,7 +80,7 @@ func TestGantry(t *testing.T) {
 // fdCheckChain compares PointJacobian with central differences of Point
 // from gonum's diff/fd at random configurations (fixed seed). Central
 // differences with fd's default step have a truncation error of order
-// h²·|p'''| ≈ 1e-11 and a rounding error of order ε/h ≈ 1e-11 on
+// h²·|p”'| ≈ 1e-11 and a rounding error of order ε/h ≈ 1e-11 on
 // metre-sized values, so 1e-6 relative to the largest entry is a wide
 // margin that still catches any wrong column.
 func fdCheckChain(t *testing.T, c *Chain, base Pose, pTip [3]float64, seed uint64, samples int) {
