@@ -1,5 +1,3 @@
-//go:build tautline_cellwip
-
 package main
 
 import (
