@@ -78,11 +78,11 @@ func TestGantry(t *testing.T) {
 }
 
 // fdCheckChain compares PointJacobian with central differences of Point
-// from gonum's diff/fd at random configurations (fixed seed). Central
-// differences with fd's default step have a truncation error of order
-// h²·|p”'| ≈ 1e-11 and a rounding error of order ε/h ≈ 1e-11 on
-// metre-sized values, so 1e-6 relative to the largest entry is a wide
-// margin that still catches any wrong column.
+// from gonum's diff/fd at random configurations (fixed seed). With fd's
+// default central step (about 6e-6) the truncation error is of order h²
+// times the third derivative and the rounding error of order ε·|p|/h,
+// both below about 1e-10 on metre-sized values, so 1e-6 relative to the
+// largest entry is a wide margin that still catches any wrong column.
 func fdCheckChain(t *testing.T, c *Chain, base Pose, pTip [3]float64, seed uint64, samples int) {
 	t.Helper()
 	n := c.NumJoints()
