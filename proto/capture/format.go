@@ -81,4 +81,3 @@ func KindName(rec *tautlinev1.Record) string {
 	}
 	return "unknown"
 }
-
