@@ -1,0 +1,396 @@
+package mpc
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/mat"
+
+	"tautline/sim"
+)
+
+// The estimator is an extended Kalman filter over the figure's state.
+//
+// # State
+//
+// The state is the figure's positions at two consecutive grid times,
+// stacked: s = (x_k, x_{k−1}) ∈ R^{2D}, D = 3·nodes (every node, anchored
+// ones included; the process holds those fixed and gives them no process
+// noise). This is the state the backward-Euler step in position form works
+// on, so the process model is the step itself,
+//
+//	x_{k+1} = f(x_k, x_{k−1}, q_{k+1}) + h²·w,   w ~ N(0, σ_a²·I),
+//
+// with q_{k+1} the joints at the end of the step (they place the string
+// anchors) and h the step. Its Jacobian is block structured,
+//
+//	F = [ ∂f/∂x_k  ∂f/∂x_{k−1} ]
+//	    [    I          0      ],
+//
+// and the two blocks are the step's sensitivities (sim's implicit-function
+// derivatives). Velocities are (x_k − x_{k−1})/h, as in the step. The noise
+// term is an unmodelled acceleration held over one step: in position form it
+// shifts x_{k+1} by h²·w (the position-form counterpart of the discrete
+// white-noise acceleration model of Bar-Shalom, Li and Kirubarajan,
+// "Estimation with Applications to Tracking and Navigation", 2001, §6.3.3).
+// A small position random walk σ_p is added on top (model mismatch that is
+// not an acceleration, and the step's own solve tolerance).
+//
+// # Measurements
+//
+// A marker observation is the marker's position in the tracker frame; it is
+// mapped to the world frame with the cell's tracker→world pose and measures
+// its node's position in x_k with independent noise of standard deviation
+// σ_m per coordinate (the cell's marker noise; a rotation keeps isotropic
+// noise isotropic). A marker that is not in an observation is simply not
+// measured. Each marker is gated on its own innovation ν against the
+// predicted state: with S = P_nn + σ_m²·I its 3×3 innovation covariance, a
+// marker with νᵀS⁻¹ν above the gate (default the 99.9 % quantile of the
+// chi-square distribution with 3 degrees of freedom, 16.266) is rejected and
+// listed in the report. The markers that pass are applied in one batch
+// update.
+//
+// # Timing (all times are cue times in seconds)
+//
+// The filter lives on a grid t_k = t₀ + k·h, where t₀ is the capture time of
+// the first observation after construction or Reset and h the process step
+// (normally the cell's tick). Observe rounds a capture time to the nearest
+// grid time (the difference is reported) and requires it to be later than
+// the filter's current grid time; it predicts the filter from its time to the
+// capture time, one step per grid interval, then updates with the markers.
+//
+// Joints along the way: the joints at a grid time t come from a piecewise
+// linear joint path through these points, in time order: the measured
+// joints of the previous observation (at the filter's time), every command
+// recorded with RecordCommand whose apply time lies strictly between that
+// and the capture time, and the measured joints of this observation (at the
+// capture time). So a step that ends at the capture time uses the measured
+// joints exactly.
+//
+// Latency compensation: PredictTo advances the filtered mean (not the
+// covariance, which the planner does not use) from the filter's time to the
+// time the next command will apply, with joints from the path through the
+// measured joints at the filter's time and every recorded command after it;
+// beyond the last recorded command the joints hold its value. A command
+// recorded with apply time τ means "the arm is at these joints at τ"; record
+// each command once it is sent, and, if the joints for the apply time itself
+// are known (the nominal plus the correction in force), record them too.
+//
+// # Failures
+//
+// Observations with a NaN or infinite value, unknown or repeated markers, a
+// joint vector of the wrong length or a time that does not move forward are
+// errors; so is a step that does not converge or an innovation covariance
+// that is not positive definite. On any error the estimator is left exactly
+// as it was before the call.
+
+// Defaults used when an EstimatorSettings field is zero.
+const (
+	// DefaultProcessAccelMPerS2 is the standard deviation of the unmodelled
+	// acceleration of each node coordinate over one step. A guess of the
+	// size of the demo mismatch set (masses ±10 % under gravity give about
+	// 1 m/s²), doubled for unmodelled pushes.
+	DefaultProcessAccelMPerS2 = 2.0
+	// DefaultProcessPositionM is the per-step position random walk: the
+	// step's solve tolerance is far below it; it keeps the predicted
+	// covariance of every free coordinate positive definite.
+	DefaultProcessPositionM = 1e-6
+	// DefaultInitialShiftM is the standard deviation of a common shift of
+	// the whole figure away from its rest pose at initialisation (the
+	// figure hangs where the arms put it, give or take this much).
+	DefaultInitialShiftM = 0.05
+	// DefaultInitialLocalM is the standard deviation of each node's own
+	// offset from the rest pose at initialisation.
+	DefaultInitialLocalM = 0.02
+	// DefaultInitialSpeedMPerS is the standard deviation of each node's
+	// velocity at initialisation (the estimate starts at rest).
+	DefaultInitialSpeedMPerS = 0.2
+	// DefaultGateChi2 is the chi-square gate on one marker's innovation:
+	// the 0.999 quantile of the chi-square distribution with 3 degrees of
+	// freedom (tabulated in Abramowitz and Stegun, Handbook of Mathematical
+	// Functions, table 26.8, as 16.266; the tests recompute it with gonum's
+	// distuv.ChiSquared). A correct marker is rejected once in a thousand.
+	DefaultGateChi2 = 16.266
+	// DefaultStaleAfterTicks is the number of consecutive observations
+	// without an accepted marker after which the report says the estimate
+	// is stale.
+	DefaultStaleAfterTicks = 5
+	// DefaultCommandHistory is how many recorded commands are kept.
+	DefaultCommandHistory = 32
+	// MarkerNoiseFloorM is added in quadrature to the marker noise so the
+	// innovation covariance stays positive definite for a noise-free
+	// tracker or a marker on an anchored node (1 nm: far below any tracker).
+	MarkerNoiseFloorM = 1e-9
+)
+
+// EstimatorSettings tunes an Estimator. The zero value of every field
+// means the documented default; a negative value is an error.
+type EstimatorSettings struct {
+	ProcessAccelMPerS2 float64 // 0 means DefaultProcessAccelMPerS2
+	ProcessPositionM   float64 // 0 means DefaultProcessPositionM
+	InitialShiftM      float64 // 0 means DefaultInitialShiftM
+	InitialLocalM      float64 // 0 means DefaultInitialLocalM
+	InitialSpeedMPerS  float64 // 0 means DefaultInitialSpeedMPerS
+	GateChi2           float64 // 0 means DefaultGateChi2; +Inf turns gating off
+	StaleAfterTicks    int     // 0 means DefaultStaleAfterTicks
+	CommandHistory     int     // 0 means DefaultCommandHistory
+}
+
+func (s EstimatorSettings) withDefaults() (EstimatorSettings, error) {
+	def := func(v *float64, d float64, name string) error {
+		if math.IsNaN(*v) || *v < 0 {
+			return fmt.Errorf("mpc: estimator setting %s = %g must be non-negative", name, *v)
+		}
+		if *v == 0 {
+			*v = d
+		}
+		return nil
+	}
+	for _, f := range []struct {
+		v    *float64
+		d    float64
+		name string
+	}{
+		{&s.ProcessAccelMPerS2, DefaultProcessAccelMPerS2, "ProcessAccelMPerS2"},
+		{&s.ProcessPositionM, DefaultProcessPositionM, "ProcessPositionM"},
+		{&s.InitialShiftM, DefaultInitialShiftM, "InitialShiftM"},
+		{&s.InitialLocalM, DefaultInitialLocalM, "InitialLocalM"},
+		{&s.InitialSpeedMPerS, DefaultInitialSpeedMPerS, "InitialSpeedMPerS"},
+		{&s.GateChi2, DefaultGateChi2, "GateChi2"},
+	} {
+		if err := def(f.v, f.d, f.name); err != nil {
+			return s, err
+		}
+	}
+	for _, v := range []float64{s.ProcessAccelMPerS2, s.ProcessPositionM, s.InitialShiftM, s.InitialLocalM, s.InitialSpeedMPerS} {
+		if math.IsInf(v, 0) {
+			return s, fmt.Errorf("mpc: estimator settings must be finite (only GateChi2 may be +Inf)")
+		}
+	}
+	if s.StaleAfterTicks < 0 || s.CommandHistory < 0 {
+		return s, fmt.Errorf("mpc: estimator settings StaleAfterTicks and CommandHistory must be non-negative")
+	}
+	if s.StaleAfterTicks == 0 {
+		s.StaleAfterTicks = DefaultStaleAfterTicks
+	}
+	if s.CommandHistory == 0 {
+		s.CommandHistory = DefaultCommandHistory
+	}
+	return s, nil
+}
+
+// MarkerSet says what the tracker sees: which node each marker sits on, how
+// noisy a marker coordinate is, and where the tracker frame is.
+type MarkerSet struct {
+	Nodes          []int    // node index of each marker; a marker is an index into this slice
+	NoiseM         float64  // standard deviation of one marker coordinate, m (≥ 0)
+	TrackerToWorld sim.Pose // maps tracker-frame positions to the world frame
+}
+
+// MarkerObs is one visible marker in an observation.
+type MarkerObs struct {
+	Marker      int        // index into the estimator's MarkerSet.Nodes (the cell's Markers)
+	PosTrackerM [3]float64 // position in the tracker frame, m
+}
+
+// RejectedMarker is a marker the innovation gate threw out.
+type RejectedMarker struct {
+	Marker int     // index into the MarkerSet
+	Chi2   float64 // νᵀS⁻¹ν of its innovation
+}
+
+// EstimatorReport describes one Observe call. Its slices are reused from
+// call to call; pass the same report every tick to stay allocation-free.
+type EstimatorReport struct {
+	GridTimeS           float64          // the grid time the observation was placed at, s
+	CaptureOffsetS      float64          // capture time − grid time, s
+	StepsPredicted      int              // process steps from the previous filter time
+	Initialised         bool             // this observation initialised the filter
+	MarkersSeen         int              // markers in the observation
+	MarkersUsed         int              // markers that passed the gate and updated the state
+	Rejected            []RejectedMarker // markers the gate rejected, in observation order
+	TicksWithoutMarkers int              // consecutive observations (this one included) with no accepted marker
+	Stale               bool             // TicksWithoutMarkers ≥ StaleAfterTicks
+}
+
+// Errors returned by the estimator; they are wrapped with detail.
+var (
+	ErrBadObservation = errors.New("mpc: bad observation")
+	ErrTimeOrder      = errors.New("mpc: time does not move forward")
+	ErrNotInitialised = errors.New("mpc: estimator has had no observation yet")
+	ErrInnovation     = errors.New("mpc: innovation covariance is not positive definite")
+)
+
+// Estimator is the extended Kalman filter over one figure. It is a value
+// with no clock: every time comes in as an argument. Make one per session
+// with NewEstimator; it is not safe for concurrent use.
+type Estimator struct {
+	proc    Process
+	markers MarkerSet
+	set     EstimatorSettings
+	d       int // positions per state half
+	nj      int // joints
+	h       float64
+	fixed   []bool // per coordinate: held by the process
+
+	// Committed filter state.
+	init      bool
+	t0        float64 // first capture time, s
+	k         int64   // grid index of the filter state
+	mean      []float64
+	cov       []float64 // 2D×2D row-major, full (both triangles)
+	joints    []float64 // measured joints at the filter time
+	noMarkers int
+
+	cmds commandRing
+
+	// Scratch.
+	wMean, wCov   []float64 // working copies, committed on success
+	wJoints       []float64
+	stepNext      []float64
+	dCur, dPrev   *mat.Dense
+	g, t, s11     []float64 // propagation: G = [A B] (D×2D), T = G·P (D×2D), new P11 (D×D)
+	qStep         []float64
+	seen          []bool // per marker, duplicates check
+	accepted      []int  // accepted markers of this observation (indices into the observation)
+	world         [][3]float64
+	innov         []float64 // 3m
+	sMat          []float64 // (3m)², innovation covariance, then its Cholesky factor
+	wt            []float64 // 3m × 2D: rows of P for the measured coordinates, then L⁻¹ of them
+	predJoints    []float64
+	predCur       []float64
+	predPrev      []float64
+	predNext      []float64
+	variances     []float64
+	rejectScratch []RejectedMarker
+}
+
+// NewEstimator makes an estimator for a process (the figure's step) and the
+// markers that observe it. It sizes every buffer once.
+func NewEstimator(p Process, m MarkerSet, s EstimatorSettings) (*Estimator, error) {
+	s, err := s.withDefaults()
+	if err != nil {
+		return nil, err
+	}
+	d, nj, h := p.Dim(), p.NumJoints(), p.StepS()
+	if d <= 0 || d%3 != 0 {
+		return nil, fmt.Errorf("mpc: process dimension %d is not a positive multiple of 3", d)
+	}
+	if nj < 0 || !(h > 0) || math.IsInf(h, 0) {
+		return nil, fmt.Errorf("mpc: process has %d joints and step %g s", nj, h)
+	}
+	if !(m.NoiseM >= 0) || math.IsInf(m.NoiseM, 0) {
+		return nil, fmt.Errorf("mpc: marker noise %g m must be non-negative and finite", m.NoiseM)
+	}
+	for i, n := range m.Nodes {
+		if n < 0 || 3*n >= d {
+			return nil, fmt.Errorf("mpc: marker %d sits on node %d; the figure has %d nodes", i, n, d/3)
+		}
+	}
+	for _, v := range append(m.TrackerToWorld.R[:], m.TrackerToWorld.P[:]...) {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return nil, fmt.Errorf("mpc: tracker→world pose is not finite")
+		}
+	}
+	nm := len(m.Nodes)
+	n := 2 * d
+	e := &Estimator{
+		proc:          p,
+		markers:       MarkerSet{Nodes: append([]int(nil), m.Nodes...), NoiseM: m.NoiseM, TrackerToWorld: m.TrackerToWorld},
+		set:           s,
+		d:             d,
+		nj:            nj,
+		h:             h,
+		fixed:         make([]bool, d),
+		mean:          make([]float64, n),
+		cov:           make([]float64, n*n),
+		joints:        make([]float64, nj),
+		cmds:          newCommandRing(s.CommandHistory, nj),
+		wMean:         make([]float64, n),
+		wCov:          make([]float64, n*n),
+		wJoints:       make([]float64, nj),
+		stepNext:      make([]float64, d),
+		dCur:          mat.NewDense(d, d, nil),
+		dPrev:         mat.NewDense(d, d, nil),
+		g:             make([]float64, d*n),
+		t:             make([]float64, d*n),
+		s11:           make([]float64, d*d),
+		qStep:         make([]float64, nj),
+		seen:          make([]bool, nm),
+		accepted:      make([]int, 0, nm),
+		world:         make([][3]float64, nm),
+		innov:         make([]float64, 3*nm),
+		sMat:          make([]float64, 9*nm*nm),
+		wt:            make([]float64, 3*nm*n),
+		predJoints:    make([]float64, nj),
+		predCur:       make([]float64, d),
+		predPrev:      make([]float64, d),
+		predNext:      make([]float64, d),
+		variances:     make([]float64, d),
+		rejectScratch: make([]RejectedMarker, 0, nm),
+	}
+	for i := range e.fixed {
+		e.fixed[i] = p.Fixed(i)
+	}
+	return e, nil
+}
+
+// Reset forgets the state and the command history; the next observation
+// initialises the filter again.
+func (e *Estimator) Reset() {
+	e.init = false
+	e.k = 0
+	e.noMarkers = 0
+	e.cmds.clear()
+}
+
+// Initialised reports whether the filter holds a state.
+func (e *Estimator) Initialised() bool { return e.init }
+
+// StepS is the filter's grid step h, s.
+func (e *Estimator) StepS() float64 { return e.h }
+
+// TimeS is the grid time of the filtered state, s (0 before the first
+// observation).
+func (e *Estimator) TimeS() float64 {
+	if !e.init {
+		return 0
+	}
+	return e.gridTime(e.k)
+}
+
+func (e *Estimator) gridTime(k int64) float64 { return e.t0 + float64(k)*e.h }
+
+// StateTo writes the filtered state at TimeS: the positions xCur at that
+// time and xPrev one step earlier (each of length Dim). It panics before the
+// first observation.
+func (e *Estimator) StateTo(xCur, xPrev []float64) {
+	if !e.init {
+		panic("mpc: StateTo before the first observation")
+	}
+	if len(xCur) != e.d || len(xPrev) != e.d {
+		panic("mpc: StateTo: wrong length")
+	}
+	copy(xCur, e.mean[:e.d])
+	copy(xPrev, e.mean[e.d:])
+}
+
+// PositionVarianceTo writes the filter's variance of every position
+// coordinate at TimeS (m², length Dim). It panics before the first
+// observation.
+func (e *Estimator) PositionVarianceTo(dst []float64) {
+	if !e.init {
+		panic("mpc: PositionVarianceTo before the first observation")
+	}
+	if len(dst) != e.d {
+		panic("mpc: PositionVarianceTo: wrong length")
+	}
+	n := 2 * e.d
+	for i := range dst {
+		dst[i] = e.cov[i*n+i]
+	}
+}
+
+// Dim is the length of a position vector (3·nodes).
+func (e *Estimator) Dim() int { return e.d }

@@ -1,0 +1,59 @@
+package mpc
+
+import "gonum.org/v1/gonum/floats"
+
+// propagateCovariance replaces the full 2D×2D covariance p (row-major, both
+// triangles) by F·p·Fᵀ + Q for F = [[A, B], [I, 0]] without forming F.
+// With G = [A B] (D×2D) and T = G·p:
+//
+//	new P11 = T·Gᵀ + Q11,  new P12 = T[:, :D] (= A·P11 + B·P21),
+//	new P21 = new P12ᵀ,    new P22 = old P11,
+//
+// 5·D³ multiply-adds (T: 4D³, the upper triangle of T·Gᵀ: D³) against
+// 16·D³ for the dense product with the 2D×2D F. The kernels are axpy and
+// dot loops on gonum's floats (assembly on amd64), serial: no goroutines,
+// no allocation. q11 holds Q11's diagonal (Q is diagonal and lives on the
+// x_{k+1} block only).
+func propagateCovariance(p []float64, d int, a, b []float64, q11 []float64, g, t, s11 []float64) {
+	n := 2 * d
+	// G = [A B].
+	for i := 0; i < d; i++ {
+		copy(g[i*n:i*n+d], a[i*d:(i+1)*d])
+		copy(g[i*n+d:(i+1)*n], b[i*d:(i+1)*d])
+	}
+	// T = G·P, row by row: T_i = Σ_k G_ik P_k.
+	for i := 0; i < d; i++ {
+		ti := t[i*n : (i+1)*n]
+		clear(ti)
+		for k, gik := range g[i*n : (i+1)*n] {
+			if gik != 0 {
+				floats.AddScaled(ti, gik, p[k*n:(k+1)*n])
+			}
+		}
+	}
+	// New P11 (upper triangle) = T·Gᵀ + Q11.
+	for i := 0; i < d; i++ {
+		ti := t[i*n : (i+1)*n]
+		for j := i; j < d; j++ {
+			s11[i*d+j] = floats.Dot(ti, g[j*n:(j+1)*n])
+		}
+		s11[i*d+i] += q11[i]
+	}
+	// New P22 = old P11: copy it before P11 is overwritten.
+	for i := 0; i < d; i++ {
+		copy(p[(d+i)*n+d:(d+i+1)*n], p[i*n:i*n+d])
+	}
+	for i := 0; i < d; i++ {
+		// New P12 row i = T row i, first half; P21 is its transpose.
+		copy(p[i*n+d:(i+1)*n], t[i*n:i*n+d])
+		for j := 0; j < d; j++ {
+			p[(d+j)*n+i] = t[i*n+j]
+		}
+		// New P11, mirrored.
+		for j := i; j < d; j++ {
+			v := s11[i*d+j]
+			p[i*n+j] = v
+			p[j*n+i] = v
+		}
+	}
+}

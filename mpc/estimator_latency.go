@@ -1,0 +1,159 @@
+package mpc
+
+import (
+	"fmt"
+	"math"
+)
+
+// commandRing keeps the most recent commanded joint vectors with their
+// apply times, oldest first, overwriting the oldest when full.
+type commandRing struct {
+	nj     int
+	timesS []float64
+	joints []float64 // cap × nj
+	head   int       // index of the oldest entry
+	count  int
+}
+
+func newCommandRing(capacity, nj int) commandRing {
+	return commandRing{nj: nj, timesS: make([]float64, capacity), joints: make([]float64, capacity*nj)}
+}
+
+func (r *commandRing) clear() { r.head, r.count = 0, 0 }
+
+// at returns the i-th oldest entry.
+func (r *commandRing) at(i int) (float64, []float64) {
+	j := (r.head + i) % len(r.timesS)
+	return r.timesS[j], r.joints[j*r.nj : (j+1)*r.nj]
+}
+
+func (r *commandRing) last() (float64, bool) {
+	if r.count == 0 {
+		return 0, false
+	}
+	t, _ := r.at(r.count - 1)
+	return t, true
+}
+
+func (r *commandRing) push(t float64, q []float64) {
+	c := len(r.timesS)
+	var j int
+	if r.count < c {
+		j = (r.head + r.count) % c
+		r.count++
+	} else {
+		j = r.head
+		r.head = (r.head + 1) % c
+	}
+	r.timesS[j] = t
+	copy(r.joints[j*r.nj:(j+1)*r.nj], q)
+}
+
+// RecordCommand records joints sent to the arms that will be in force at
+// cue time applyTimeS (see the timing model in the package's estimator
+// notes). Apply times must increase strictly from call to call; Reset
+// clears the record. NaN or infinite values and a joint vector of the wrong
+// length are errors.
+func (e *Estimator) RecordCommand(applyTimeS float64, joints []float64) error {
+	if math.IsNaN(applyTimeS) || math.IsInf(applyTimeS, 0) {
+		return fmt.Errorf("%w: command apply time %g s is not finite", ErrBadObservation, applyTimeS)
+	}
+	if len(joints) != e.nj {
+		return fmt.Errorf("%w: command has %d joints, the cell has %d", ErrBadObservation, len(joints), e.nj)
+	}
+	for i, v := range joints {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("%w: command joint %d is %g", ErrBadObservation, i, v)
+		}
+	}
+	if t, ok := e.cmds.last(); ok && !(applyTimeS > t) {
+		return fmt.Errorf("%w: command apply time %g s is not after the previous one, %g s", ErrTimeOrder, applyTimeS, t)
+	}
+	e.cmds.push(applyTimeS, joints)
+	return nil
+}
+
+// pathJoints writes the joints at time t of the piecewise linear joint path
+// through (startS, start), every recorded command with apply time in
+// (startS, endS), and, if end is not nil, (endS, end). Before startS it
+// returns start; after the last point it holds the last point's joints.
+func (e *Estimator) pathJoints(dst []float64, t, startS float64, start []float64, endS float64, end []float64) {
+	prevT, prevQ := startS, start
+	if t <= startS {
+		copy(dst, start)
+		return
+	}
+	for i := 0; i < e.cmds.count; i++ {
+		ct, cq := e.cmds.at(i)
+		if ct <= startS {
+			continue
+		}
+		if end != nil && ct >= endS {
+			break
+		}
+		if ct >= t {
+			lerpJoints(dst, t, prevT, prevQ, ct, cq)
+			return
+		}
+		prevT, prevQ = ct, cq
+	}
+	if end != nil {
+		lerpJoints(dst, t, prevT, prevQ, endS, end)
+		return
+	}
+	copy(dst, prevQ)
+}
+
+// lerpJoints interpolates linearly between (t0, q0) and (t1, q1) at t,
+// holding q1 beyond t1.
+func lerpJoints(dst []float64, t, t0 float64, q0 []float64, t1 float64, q1 []float64) {
+	if t >= t1 || t1 <= t0 {
+		copy(dst, q1)
+		return
+	}
+	w := (t - t0) / (t1 - t0)
+	for i := range dst {
+		dst[i] = q0[i] + w*(q1[i]-q0[i])
+	}
+}
+
+// gridIndex rounds a time to the nearest grid index.
+func (e *Estimator) gridIndex(tS float64) int64 {
+	return int64(math.Round((tS - e.t0) / e.h))
+}
+
+// PredictTo writes the estimated positions at cue time applyTimeS (rounded
+// to the filter's grid) into xCur and one step earlier into xPrev: the
+// filtered mean advanced by the process model with the joints of the
+// recorded commands (latency compensation; see the timing model). The
+// filter itself does not change. An apply time before the filter's time is
+// an error, as is a step that fails.
+func (e *Estimator) PredictTo(xCur, xPrev []float64, applyTimeS float64) error {
+	if !e.init {
+		return ErrNotInitialised
+	}
+	if len(xCur) != e.d || len(xPrev) != e.d {
+		panic("mpc: PredictTo: wrong length")
+	}
+	if math.IsNaN(applyTimeS) || math.IsInf(applyTimeS, 0) {
+		return fmt.Errorf("%w: apply time %g s is not finite", ErrBadObservation, applyTimeS)
+	}
+	k := e.gridIndex(applyTimeS)
+	if k < e.k {
+		return fmt.Errorf("%w: apply time %g s is before the filter's time %g s", ErrTimeOrder, applyTimeS, e.gridTime(e.k))
+	}
+	cur, prev, next := e.predCur, e.predPrev, e.predNext
+	copy(cur, e.mean[:e.d])
+	copy(prev, e.mean[e.d:])
+	tF := e.gridTime(e.k)
+	for j := e.k + 1; j <= k; j++ {
+		e.pathJoints(e.predJoints, e.gridTime(j), tF, e.joints, 0, nil)
+		if err := e.proc.Step(next, cur, prev, e.predJoints); err != nil {
+			return fmt.Errorf("mpc: predicting to %g s: %w", applyTimeS, err)
+		}
+		prev, cur, next = cur, next, prev
+	}
+	copy(xCur, cur)
+	copy(xPrev, prev)
+	return nil
+}

@@ -1,0 +1,178 @@
+package mpc
+
+import (
+	"fmt"
+	"math"
+)
+
+// Observe feeds one observation to the filter: the markers visible in a
+// tracker frame captured at cue time captureTimeS, and the arms' measured
+// joints at that time. The first observation after construction or Reset
+// initialises the filter (see initialise); every later one predicts the
+// filter to the capture time's grid point and updates it with the markers
+// that pass the gate. rep is filled in; its slices are reused.
+//
+// On an error the estimator is unchanged and rep is not meaningful.
+func (e *Estimator) Observe(captureTimeS float64, joints []float64, markers []MarkerObs, rep *EstimatorReport) error {
+	if err := e.checkObservation(captureTimeS, joints, markers); err != nil {
+		return err
+	}
+	if cap(rep.Rejected) < len(e.markers.Nodes) {
+		rep.Rejected = make([]RejectedMarker, 0, len(e.markers.Nodes))
+	}
+	*rep = EstimatorReport{Rejected: rep.Rejected[:0], MarkersSeen: len(markers)}
+
+	kc := int64(0)
+	if !e.init {
+		if err := e.initialise(joints); err != nil {
+			return err
+		}
+		rep.Initialised = true
+	} else {
+		kc = e.gridIndex(captureTimeS)
+		if kc <= e.k {
+			return fmt.Errorf("%w: capture time %g s is not after the previous observation's grid time %g s (step %g s)",
+				ErrTimeOrder, captureTimeS, e.gridTime(e.k), e.h)
+		}
+		copy(e.wMean, e.mean)
+		copy(e.wCov, e.cov)
+		if err := e.predict(kc, captureTimeS, joints); err != nil {
+			return err
+		}
+		rep.StepsPredicted = int(kc - e.k)
+	}
+	if err := e.gateAndUpdate(markers, rep); err != nil {
+		return err
+	}
+
+	// Commit.
+	if !e.init {
+		e.t0, e.init = captureTimeS, true
+	}
+	e.k = kc
+	e.mean, e.wMean = e.wMean, e.mean
+	e.cov, e.wCov = e.wCov, e.cov
+	copy(e.joints, joints)
+	if rep.MarkersUsed == 0 {
+		e.noMarkers++
+	} else {
+		e.noMarkers = 0
+	}
+	rep.GridTimeS = e.gridTime(kc)
+	rep.CaptureOffsetS = captureTimeS - rep.GridTimeS
+	rep.TicksWithoutMarkers = e.noMarkers
+	rep.Stale = e.noMarkers >= e.set.StaleAfterTicks
+	return nil
+}
+
+// checkObservation validates an observation and maps the markers to the
+// world frame into e.world.
+func (e *Estimator) checkObservation(captureTimeS float64, joints []float64, markers []MarkerObs) error {
+	if math.IsNaN(captureTimeS) || math.IsInf(captureTimeS, 0) {
+		return fmt.Errorf("%w: capture time %g s is not finite", ErrBadObservation, captureTimeS)
+	}
+	if len(joints) != e.nj {
+		return fmt.Errorf("%w: %d measured joints, the cell has %d", ErrBadObservation, len(joints), e.nj)
+	}
+	for i, v := range joints {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("%w: measured joint %d is %g", ErrBadObservation, i, v)
+		}
+	}
+	nm := len(e.markers.Nodes)
+	if len(markers) > nm {
+		return fmt.Errorf("%w: %d markers, the cell has %d", ErrBadObservation, len(markers), nm)
+	}
+	clear(e.seen)
+	for i, m := range markers {
+		if m.Marker < 0 || m.Marker >= nm {
+			return fmt.Errorf("%w: marker index %d, the cell has markers 0…%d", ErrBadObservation, m.Marker, nm-1)
+		}
+		if e.seen[m.Marker] {
+			return fmt.Errorf("%w: marker %d appears twice", ErrBadObservation, m.Marker)
+		}
+		e.seen[m.Marker] = true
+		for a, v := range m.PosTrackerM {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Errorf("%w: marker %d coordinate %d is %g", ErrBadObservation, m.Marker, a, v)
+			}
+		}
+		e.world[i] = e.markers.TrackerToWorld.Apply(m.PosTrackerM)
+	}
+	return nil
+}
+
+// predict advances e.wMean and e.wCov from the filter's grid index e.k to
+// kc, the capture's grid index, one process step at a time.
+func (e *Estimator) predict(kc int64, captureTimeS float64, joints []float64) error {
+	d := e.d
+	h2a := e.h * e.h * e.set.ProcessAccelMPerS2
+	q := h2a*h2a + e.set.ProcessPositionM*e.set.ProcessPositionM
+	for i := range e.variances {
+		if e.fixed[i] {
+			e.variances[i] = 0
+		} else {
+			e.variances[i] = q
+		}
+	}
+	tF, tC := e.gridTime(e.k), e.gridTime(kc)
+	a, b := e.dCur.RawMatrix(), e.dPrev.RawMatrix()
+	for j := e.k + 1; j <= kc; j++ {
+		e.pathJoints(e.qStep, e.gridTime(j), tF, e.joints, tC, joints)
+		if err := e.proc.Step(e.stepNext, e.wMean[:d], e.wMean[d:], e.qStep); err != nil {
+			return fmt.Errorf("mpc: predicting to the capture at %g s: %w", captureTimeS, err)
+		}
+		e.proc.SensitivitiesTo(e.dCur, e.dPrev)
+		propagateCovariance(e.wCov, d, a.Data, b.Data, e.variances, e.g, e.t, e.s11)
+		copy(e.wMean[d:], e.wMean[:d])
+		copy(e.wMean[:d], e.stepNext)
+	}
+	return nil
+}
+
+// initialise sets e.wMean and e.wCov to the prior of a first observation:
+// the process's rest pose for the measured joints, at rest, with
+//
+//	P_xx = σ_l²·I + σ_s²·(11ᵀ ⊗ I₃)   (each node's own offset and a common shift),
+//	P    = [[P_xx, P_xx], [P_xx, P_xx + h²σ_v²·I]]   (x_{k−1} = x_k − h·v),
+//
+// over the free coordinates (fixed ones have zero variance). The markers
+// of the observation then update this prior like any other.
+func (e *Estimator) initialise(joints []float64) error {
+	d, n := e.d, 2*e.d
+	if err := e.proc.RestPoseTo(e.predCur, joints); err != nil {
+		return fmt.Errorf("mpc: rest pose for the first observation: %w", err)
+	}
+	for _, v := range e.predCur {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("mpc: rest pose for the first observation is not finite")
+		}
+	}
+	copy(e.wMean[:d], e.predCur)
+	copy(e.wMean[d:], e.predCur)
+	sl2 := e.set.InitialLocalM * e.set.InitialLocalM
+	ss2 := e.set.InitialShiftM * e.set.InitialShiftM
+	hv := e.h * e.set.InitialSpeedMPerS
+	p := e.wCov
+	clear(p)
+	for i := 0; i < d; i++ {
+		if e.fixed[i] {
+			continue
+		}
+		for j := i % 3; j < d; j += 3 {
+			if e.fixed[j] {
+				continue
+			}
+			v := ss2
+			if i == j {
+				v += sl2
+			}
+			p[i*n+j] = v
+			p[i*n+d+j] = v
+			p[(d+i)*n+j] = v
+			p[(d+i)*n+d+j] = v
+		}
+		p[(d+i)*n+d+i] += hv * hv
+	}
+	return nil
+}

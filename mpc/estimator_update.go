@@ -1,0 +1,137 @@
+package mpc
+
+import (
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/floats"
+)
+
+// gateAndUpdate gates every observed marker on its innovation against the
+// predicted state in e.wMean, e.wCov and applies the accepted ones in one
+// batch (the Kalman 1960 update in its covariance form):
+//
+//	S = H·P·Hᵀ + R,  x ← x + P·Hᵀ·S⁻¹·ν,  P ← P − P·Hᵀ·S⁻¹·H·P.
+//
+// H selects the 3 coordinates of each marker's node in x_k, so P·Hᵀ is a
+// set of rows of P and H·P·Hᵀ a set of its 3×3 blocks. With S = L·Lᵀ
+// (Cholesky) and W = L⁻¹·H·P the update is x ← x + Wᵀ·(L⁻¹ν) and
+// P ← P − Wᵀ·W, a symmetric rank-3m update computed on the upper triangle
+// and mirrored: 3m·N² multiply-adds for N = 2D and m markers.
+// e.world holds the markers' world positions, in observation order.
+func (e *Estimator) gateAndUpdate(markers []MarkerObs, rep *EstimatorReport) error {
+	n := 2 * e.d
+	p, x := e.wCov, e.wMean
+	r := e.markers.NoiseM*e.markers.NoiseM + MarkerNoiseFloorM*MarkerNoiseFloorM
+	e.accepted = e.accepted[:0]
+	for i, mo := range markers {
+		c := 3 * e.markers.Nodes[mo.Marker]
+		var nu [3]float64
+		var s [9]float64
+		for a := range 3 {
+			nu[a] = e.world[i][a] - x[c+a]
+			for b := range 3 {
+				s[3*a+b] = p[(c+a)*n+c+b]
+			}
+			s[4*a] += r
+		}
+		chi2, ok := chi2of3(&s, &nu)
+		if !ok {
+			return fmt.Errorf("%w: marker %d (node %d)", ErrInnovation, mo.Marker, c/3)
+		}
+		if chi2 > e.set.GateChi2 {
+			rep.Rejected = append(rep.Rejected, RejectedMarker{Marker: mo.Marker, Chi2: chi2})
+			continue
+		}
+		e.accepted = append(e.accepted, i)
+	}
+	rep.MarkersUsed = len(e.accepted)
+	k := 3 * len(e.accepted)
+	if k == 0 {
+		return nil
+	}
+	// S, ν and the rows of P for the measured coordinates.
+	s, nu, wt := e.sMat[:k*k], e.innov[:k], e.wt[:k*n]
+	for ai, i := range e.accepted {
+		ci := 3 * e.markers.Nodes[markers[i].Marker]
+		for a := range 3 {
+			row := 3*ai + a
+			nu[row] = e.world[i][a] - x[ci+a]
+			copy(wt[row*n:(row+1)*n], p[(ci+a)*n:(ci+a+1)*n])
+			for bj, j := range e.accepted {
+				cj := 3 * e.markers.Nodes[markers[j].Marker]
+				for b := range 3 {
+					s[row*k+3*bj+b] = p[(ci+a)*n+cj+b]
+				}
+			}
+			s[row*k+row] += r
+		}
+	}
+	if !choleskyLower(s, k) {
+		return fmt.Errorf("%w: %d markers", ErrInnovation, len(e.accepted))
+	}
+	// W = L⁻¹·(H·P) and y = L⁻¹·ν by forward substitution, row by row.
+	for row := 0; row < k; row++ {
+		wr := wt[row*n : (row+1)*n]
+		for c := 0; c < row; c++ {
+			l := s[row*k+c]
+			floats.AddScaled(wr, -l, wt[c*n:(c+1)*n])
+			nu[row] -= l * nu[c]
+		}
+		inv := 1 / s[row*k+row]
+		floats.Scale(inv, wr)
+		nu[row] *= inv
+	}
+	// x ← x + Wᵀ·y.
+	for row := 0; row < k; row++ {
+		floats.AddScaled(x, nu[row], wt[row*n:(row+1)*n])
+	}
+	// P ← P − Wᵀ·W on the upper triangle, then mirrored.
+	for i := 0; i < n; i++ {
+		pi := p[i*n+i : (i+1)*n]
+		for row := 0; row < k; row++ {
+			if v := wt[row*n+i]; v != 0 {
+				floats.AddScaled(pi, -v, wt[row*n+i:(row+1)*n])
+			}
+		}
+	}
+	for i := 0; i < n; i++ {
+		for j := i + 1; j < n; j++ {
+			p[j*n+i] = p[i*n+j]
+		}
+	}
+	return nil
+}
+
+// chi2of3 returns νᵀS⁻¹ν for a 3×3 symmetric S (row-major), and false if
+// S is not positive definite.
+func chi2of3(s *[9]float64, nu *[3]float64) (float64, bool) {
+	l := *s
+	if !choleskyLower(l[:], 3) {
+		return 0, false
+	}
+	y0 := nu[0] / l[0]
+	y1 := (nu[1] - l[3]*y0) / l[4]
+	y2 := (nu[2] - l[6]*y0 - l[7]*y1) / l[8]
+	return y0*y0 + y1*y1 + y2*y2, true
+}
+
+// choleskyLower overwrites the lower triangle of the k×k symmetric matrix
+// a (row-major) with L, a = L·Lᵀ, and reports false if a is not positive
+// definite (a pivot that is not positive and finite). The upper triangle is
+// left as it was.
+func choleskyLower(a []float64, k int) bool {
+	for j := 0; j < k; j++ {
+		rj := a[j*k : j*k+j]
+		d := a[j*k+j] - floats.Dot(rj, rj)
+		if !(d > 0) || math.IsInf(d, 0) {
+			return false
+		}
+		d = math.Sqrt(d)
+		a[j*k+j] = d
+		for i := j + 1; i < k; i++ {
+			a[i*k+j] = (a[i*k+j] - floats.Dot(a[i*k:i*k+j], rj)) / d
+		}
+	}
+	return true
+}
