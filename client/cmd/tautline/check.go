@@ -8,13 +8,14 @@ import (
 	"strings"
 	"text/tabwriter"
 
+	"tautline/mpc"
 	"tautline/sim"
 )
 
 func init() {
 	register(&command{
 		name:    "check",
-		summary: "validate a cell (and a cue) and print what it holds",
+		summary: "validate a cell (and a cue) and print what they hold",
 		run:     runCheck,
 	})
 }
@@ -26,23 +27,60 @@ nodes and markers, the figure's total mass, and the rest pose the figure
 settles to with the arms at their home pose (static equilibrium). It warns
 about strings that are slack at rest and nodes no marker sees.
 
+With a cue file (CSV, header time_s,<arm>.<joint>,...) it also checks the cue
+against every joint limit on the interpolating spline and prints the cue's
+duration and each joint's peak speed and acceleration as a percentage of its
+limit.
+
 Exits 0 when the files are valid, 1 with every problem found (file, line:column
 and field) when they are not, 2 on bad usage.`
 
 func runCheck(args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("check", "CELL", checkHelp, stderr)
+	fs := newFlags("check", "CELL [CUE]", checkHelp, stderr)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
-	if fs.NArg() != 1 {
+	if fs.NArg() < 1 || fs.NArg() > 2 {
 		fs.Usage()
-		return fmt.Errorf("%w: want exactly one cell file, got %d arguments", errUsage, fs.NArg())
+		return fmt.Errorf("%w: want a cell file and optionally a cue file, got %d arguments", errUsage, fs.NArg())
 	}
 	cell, err := sim.LoadCell(fs.Arg(0), os.ReadFile)
 	if err != nil {
 		return err
 	}
-	return printCell(stdout, fs.Arg(0), cell)
+	if err := printCell(stdout, fs.Arg(0), cell); err != nil {
+		return err
+	}
+	if fs.NArg() == 2 {
+		return checkCue(stdout, cell, fs.Arg(1))
+	}
+	return nil
+}
+
+// loadCue reads and checks a cue file against the cell's joints.
+func loadCue(cell *sim.Cell, path string) (*mpc.Cue, error) {
+	data, err := os.ReadFile(path)
+	if err != nil {
+		return nil, err
+	}
+	return mpc.ParseCue(path, data, mpc.CueJointsOf(cell), mpc.CueSettings{TickS: cell.TickS})
+}
+
+func checkCue(w io.Writer, cell *sim.Cell, path string) error {
+	cue, err := loadCue(cell, path)
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(w, "\ncue %s: %.3f s (from %.3f s to %.3f s), every limit respected on the spline\n", path, cue.DurationS(), cue.StartS(), cue.EndS())
+	tw := tabwriter.NewWriter(w, 2, 8, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "  joint\tmin\tmax\tpeak speed\tof limit\tat s\tpeak accel\tof limit\tat s\t")
+	for _, p := range cue.Peaks() {
+		fmt.Fprintf(tw, "  %s\t%.3f\t%.3f\t%.3f\t%.0f%%\t%.2f\t%.3f\t%.0f%%\t%.2f\t\n", p.Name, p.MinPosition, p.MaxPosition,
+			p.PeakSpeed, 100*p.PeakSpeedOfLimit, p.PeakSpeedAtS, p.PeakAccel, 100*p.PeakAccelOfLimit, p.PeakAccelAtS)
+	}
+	tw.Flush()
+	fmt.Fprintf(w, "\nok: %s is valid for this cell\n", path)
+	return nil
 }
 
 // restPose settles the figure with the arms at home and returns node
