@@ -71,26 +71,48 @@ type Cue struct {
 	peaks  []JointPeak
 }
 
-// ParseCue reads the cue file (its name is only used in messages) for a cell
-// with the given joints, fits the spline and checks it against every joint's
-// position, velocity and acceleration limit. The CSV columns may be in any
-// order; the Cue reports joints in the order of joints.
+// ParseCue reads a cue file for a cell with the given joints (in the cell's
+// order), fits the spline and checks it against every joint's position,
+// velocity and acceleration limit. file is only used in messages.
 //
-// Problems in the file are returned as sim.FileErrors, each naming the file,
-// line, character column and CSV column (number and header name). A limit
-// violation is one *sim.FileError naming the earliest time and the joint,
-// on the last row at or before that time. Invalid joints or settings (a
-// caller's mistake, not the file's) are plain errors.
+// # File format (tautline.cue/1)
+//
+// UTF-8 CSV text; a byte-order mark and CRLF line ends are accepted. Blank
+// lines and lines starting with '#' are ignored; a comment
+// "# tautline.cue/1" before the header declares the version (optional; any
+// other "# tautline.…" declaration there is refused). The first other line
+// is the header: time_s, then one column per joint named "<arm>.<joint>",
+// every joint of the cell exactly once, in any order. Each following line is
+// a row: the cue time in seconds, then each joint's position in rad (m for a
+// prismatic joint). Times strictly increase; at least 2 rows; every value a
+// finite decimal number. Spaces around fields are ignored; there is no
+// quoting. For example (invented):
+//
+//	# tautline.cue/1
+//	time_s,left.shoulder,left.elbow,right.shoulder,right.elbow
+//	0.0,   0.00,         1.20,       0.00,          1.20
+//	1.5,   0.35,         0.90,      -0.35,          0.90
+//	3.0,   0.00,         1.20,       0.00,          1.20
+//
+// # Errors
+//
+// Problems in the file are returned as sim.FileErrors, in file order, each
+// naming the file, the line, the character column and the CSV column by
+// number and header name ("cue.csv:14:9: left.j2 (column 3): …"); a missing
+// column is reported on the header line. A limit violation is reported once,
+// for the earliest sample beyond a limit (position first, then velocity,
+// then acceleration, joints in cell order), on the last row at or before
+// that time; the reported time is at most one sample step
+// (TickS/SamplesPerTick) after the spline crosses the limit. Invalid joints
+// or settings, which are the caller's mistake and not the file's, are plain
+// errors.
 func ParseCue(file string, data []byte, joints []CueJoint, s CueSettings) (*Cue, error) {
 	samplesPerTick, err := validateCueInputs(joints, s)
 	if err != nil {
 		return nil, err
 	}
-	tt, err := parseTimeTable(file, data, "cue")
-	if err != nil {
-		return nil, err
-	}
-	order, err := mapCueColumns(tt, joints)
+	var order []int
+	tt, err := parseTimeTable(file, data, "cue", func(tt *timeTable, el *errorList) { order = mapCueColumns(tt, joints, el) })
 	if err != nil {
 		return nil, err
 	}
@@ -144,7 +166,7 @@ func validateCueInputs(joints []CueJoint, s CueSettings) (samplesPerTick int, er
 	seen := make(map[string]bool, len(joints))
 	for _, j := range joints {
 		switch {
-		case j.Name == "" || j.Name == "time_s" || strings.ContainsAny(j.Name, ",#\r\n") || strings.TrimSpace(j.Name) != j.Name:
+		case j.Name == "" || j.Name == "time_s" || strings.ContainsAny(j.Name, ",\r\n") || strings.TrimSpace(j.Name) != j.Name:
 			return 0, fmt.Errorf("mpc: cue joint name %q cannot be a CSV column name", j.Name)
 		case seen[j.Name]:
 			return 0, fmt.Errorf("mpc: cue joint %q is listed twice", j.Name)
@@ -161,9 +183,8 @@ func validateCueInputs(joints []CueJoint, s CueSettings) (samplesPerTick int, er
 }
 
 // mapCueColumns returns, for each joint in cell order, the index of its CSV
-// column. Unknown, duplicate and missing columns are all reported.
-func mapCueColumns(tt *timeTable, joints []CueJoint) ([]int, error) {
-	el := &errorList{file: tt.file}
+// column. Unknown, duplicate and missing columns are all reported to el.
+func mapCueColumns(tt *timeTable, joints []CueJoint, el *errorList) []int {
 	index := make(map[string]int, len(joints))
 	for j, jt := range joints {
 		index[jt.Name] = j
@@ -190,7 +211,7 @@ func mapCueColumns(tt *timeTable, joints []CueJoint) ([]int, error) {
 			el.add(tt.headerLine, 0, jt.Name, "the header has no column for joint %s; every joint of the cell must appear exactly once", jt.Name)
 		}
 	}
-	return order, el.err()
+	return order
 }
 
 func listNames(joints []CueJoint) string {

@@ -105,8 +105,10 @@ func splitCSVLine(text string, line, offset int) csvLine {
 }
 
 // parseTimeTable reads the table; kind ("cue", "reference") names the format
-// in the version comment and in messages.
-func parseTimeTable(file string, data []byte, kind string) (*timeTable, error) {
+// in the version comment and in messages. checkHeader, if not nil, runs as
+// soon as the header is read, so its problems are listed in file order with
+// the rows' problems.
+func parseTimeTable(file string, data []byte, kind string, checkHeader func(*timeTable, *errorList)) (*timeTable, error) {
 	el := &errorList{file: file}
 	tt := &timeTable{file: file, data: data}
 	body := data
@@ -156,6 +158,9 @@ func parseTimeTable(file string, data []byte, kind string) (*timeTable, error) {
 			}
 			if len(l.fields) < 2 {
 				el.add(lineNo, 0, "", "the header names no column after time_s")
+			}
+			if checkHeader != nil {
+				checkHeader(tt, el)
 			}
 			continue
 		}

@@ -31,8 +31,8 @@ type JointPeak struct {
 // below anything a robot could resolve. (Common practice, not a standard.)
 func limitSlack(limit float64) float64 { return 1e-9 * math.Max(1, math.Abs(limit)) }
 
-// checkCueLimits samples the spline and returns the peaks, or a
-// *sim.FileError for the earliest sample that breaks a limit.
+// checkCueLimits samples the spline and returns the peaks, or an error for
+// the earliest sample that breaks a limit.
 //
 // The samples are, in time order: every row (knot); a uniform grid of step
 // sampleStepS from the start (so at least SamplesPerTick samples per tick,
@@ -45,8 +45,8 @@ func limitSlack(limit float64) float64 { return 1e-9 * math.Max(1, math.Abs(limi
 func checkCueLimits(tt *timeTable, order []int, sp *cubicSpline, joints []CueJoint, sampleStepS float64) ([]JointPeak, error) {
 	start, end := sp.startS(), sp.endS()
 	if (end-start)/sampleStepS > maxCueSamples {
-		return nil, &sim.FileError{File: tt.file, Line: tt.rows[len(tt.rows)-1].line,
-			Msg: fmt.Sprintf("the cue is %s s long; checking it every %s s would take more than %d samples", fmtNum(end-start), fmtNum(sampleStepS), maxCueSamples)}
+		return nil, sim.FileErrors{{File: tt.file, Line: tt.rows[len(tt.rows)-1].line,
+			Msg: fmt.Sprintf("the cue is %s s long; checking it every %s s would take more than %d samples", fmtNum(end-start), fmtNum(sampleStepS), maxCueSamples)}}
 	}
 	peaks := make([]JointPeak, len(joints))
 	for j, jt := range joints {
@@ -89,8 +89,8 @@ func checkCueLimits(tt *timeTable, order []int, sp *cubicSpline, joints []CueJoi
 				}
 				if msg := limitBreach(jt, pos, vel, acc, t); msg != "" {
 					r := tt.rows[row]
-					return nil, &sim.FileError{File: tt.file, Line: r.line, Col: tt.columnOfField(r, order[j]),
-						Field: fieldName(jt.Name, order[j]+1), Msg: msg}
+					return nil, sim.FileErrors{{File: tt.file, Line: r.line, Col: tt.columnOfField(r, order[j]),
+						Field: fieldName(jt.Name, order[j]+1), Msg: msg}}
 				}
 				updatePeak(&peaks[j], jt, pos, vel, acc, t)
 			}

@@ -184,17 +184,22 @@ func TestCuePeaksAreExactBetweenSamples(t *testing.T) {
 	}
 
 	// A position that turns between rows, off the grid: the reported maximum
-	// must match a brute-force scan at 1e-6 s spacing (whose own shortfall is
-	// at most |a|·(1e-6)²/2 ≈ 1e-12 here); grid-only sampling would be short
-	// by about 1e-4.
+	// must match a brute-force scan (1e-4 s spacing, then 1e-7 s around the
+	// best point; the scan's own shortfall is at most |a|·(1e-7)²/2 < 1e-13
+	// here); grid-only sampling would be short by about 2e-6.
 	csv = "time_s,left.j1,left.j2,right.j1\n0,0,0,0\n1.0003,1,0,0\n2.5,0.2,0,0\n"
 	c, err = ParseCue("turn.csv", []byte(csv), testJoints(), CueSettings{TickS: 0.1})
 	if err != nil {
 		t.Fatal(err)
 	}
 	q := make([]float64, 3)
-	scanMax := math.Inf(-1)
-	for at := 0.0; at <= 2.5; at += 1e-6 {
+	scanMax, best := math.Inf(-1), 0.0
+	for at := 0.0; at <= 2.5; at += 1e-4 {
+		if c.PositionTo(q, at); q[0] > scanMax {
+			scanMax, best = q[0], at
+		}
+	}
+	for at := best - 1e-4; at <= best+1e-4; at += 1e-7 {
 		c.PositionTo(q, at)
 		scanMax = math.Max(scanMax, q[0])
 	}
@@ -337,9 +342,10 @@ func TestParseCueMalformed(t *testing.T) {
 	}
 }
 
-// A header can be wrong in several ways at once; each is reported.
-func TestParseCueReportsEveryHeaderProblem(t *testing.T) {
-	csv := "time_s,left.j2,left.j2,right.j9\n0,0,0,0\n1,0,0,0\n"
+// A header can be wrong in several ways at once; each is reported, and so
+// are the rows' problems, in file order.
+func TestParseCueReportsEveryProblem(t *testing.T) {
+	csv := "time_s,left.j2,left.j2,right.j9\n0,0,0,0\n1,0,x,0\n"
 	_, err := ParseCue("many.csv", []byte(csv), testJoints(), CueSettings{TickS: testTickS})
 	var fes sim.FileErrors
 	if !errors.As(err, &fes) {
@@ -350,6 +356,7 @@ func TestParseCueReportsEveryHeaderProblem(t *testing.T) {
 		`many.csv:1:24: right.j9 (column 4): "right.j9" is not a joint`,
 		"many.csv:1: left.j1: the header has no column for joint left.j1",
 		"many.csv:1: right.j1: the header has no column for joint right.j1",
+		`many.csv:3:5: left.j2 (column 3): "x" is not a number`,
 	}
 	if len(fes) != len(want) {
 		t.Fatalf("%d errors, want %d:\n%v", len(fes), len(want), err)
@@ -478,7 +485,7 @@ func TestParseCueRefusesLimitBreaks(t *testing.T) {
 					}
 				}
 				// The line is that of the last row at or before the break.
-				tt, err := parseTimeTable(c.file, readCue(t, c.file), "cue")
+				tt, err := parseTimeTable(c.file, readCue(t, c.file), "cue", nil)
 				if err != nil {
 					t.Fatal(err)
 				}
@@ -505,7 +512,7 @@ func TestParseCueRefusesLimitBreaks(t *testing.T) {
 // also the row-to-row speed.
 func checkRowsWithinLimit(t *testing.T, cue *Cue, file string, joint int, kind string, limit float64) {
 	t.Helper()
-	tt, err := parseTimeTable(file, readCue(t, file), "cue")
+	tt, err := parseTimeTable(file, readCue(t, file), "cue", nil)
 	if err != nil {
 		t.Fatal(err)
 	}

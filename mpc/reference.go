@@ -38,7 +38,7 @@ func ParseReference(file string, data []byte, markerIDs []string) (*Reference, e
 	}
 	index := make(map[string]int, 3*len(markerIDs))
 	for m, id := range markerIDs {
-		if id == "" || strings.ContainsAny(id, ",#\r\n") || strings.TrimSpace(id) != id {
+		if id == "" || strings.ContainsAny(id, ",\r\n") || strings.TrimSpace(id) != id {
 			return nil, fmt.Errorf("mpc: marker id %q cannot be a CSV column name", id)
 		}
 		for a, axis := range [...]string{"x", "y", "z"} {
@@ -49,34 +49,32 @@ func ParseReference(file string, data []byte, markerIDs []string) (*Reference, e
 			index[name] = 3*m + a
 		}
 	}
-	tt, err := parseTimeTable(file, data, "reference")
-	if err != nil {
-		return nil, err
-	}
-	el := &errorList{file: file}
 	order := make([]int, 3*len(markerIDs))
-	for k := range order {
-		order[k] = -1
-	}
-	for i := 1; i < len(tt.columns); i++ {
-		name := tt.columns[i]
-		k, ok := index[name]
-		switch {
-		case !ok:
-			el.add(tt.headerLine, tt.headerCols[i], fieldName(name, i+1), "%q is not <marker>.x, .y or .z of a marker of the cell; its markers are %s", name, strings.Join(markerIDs, ", "))
-		case order[k] >= 0:
-			el.add(tt.headerLine, tt.headerCols[i], fieldName(name, i+1), "%s appears again; it is already column %d (every coordinate exactly once)", name, order[k]+1)
-		default:
-			order[k] = i
+	mapColumns := func(tt *timeTable, el *errorList) {
+		for k := range order {
+			order[k] = -1
+		}
+		for i := 1; i < len(tt.columns); i++ {
+			name := tt.columns[i]
+			k, ok := index[name]
+			switch {
+			case !ok:
+				el.add(tt.headerLine, tt.headerCols[i], fieldName(name, i+1), "%q is not <marker>.x, .y or .z of a marker of the cell; its markers are %s", name, strings.Join(markerIDs, ", "))
+			case order[k] >= 0:
+				el.add(tt.headerLine, tt.headerCols[i], fieldName(name, i+1), "%s appears again; it is already column %d (every coordinate exactly once)", name, order[k]+1)
+			default:
+				order[k] = i
+			}
+		}
+		for k, c := range order {
+			if c < 0 {
+				name := markerIDs[k/3] + "." + [...]string{"x", "y", "z"}[k%3]
+				el.add(tt.headerLine, 0, name, "the header has no column %s; every marker needs x, y and z", name)
+			}
 		}
 	}
-	for k, c := range order {
-		if c < 0 {
-			name := markerIDs[k/3] + "." + [...]string{"x", "y", "z"}[k%3]
-			el.add(tt.headerLine, 0, name, "the header has no column %s; every marker needs x, y and z", name)
-		}
-	}
-	if err := el.err(); err != nil {
+	tt, err := parseTimeTable(file, data, "reference", mapColumns)
+	if err != nil {
 		return nil, err
 	}
 	if len(tt.rows) < 2 {
