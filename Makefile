@@ -36,7 +36,7 @@ bench:
 
 ## demo: the most complete thing that exists, on the built-in demo data.
 demo:
-	$(GO) run ./client/cmd/tautline check testdata/demo/cell.json
+	$(GO) run ./client/cmd/tautline check testdata/demo/cell.json testdata/demo/cue.csv
 
 ## proto: regenerate proto/tautline/v1/*.pb.go with pinned tools (installs missing ones).
 proto:
