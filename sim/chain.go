@@ -211,22 +211,26 @@ func (c *Chain) Forward(ws *ChainWorkspace, base Pose, q []float64) Pose {
 	if len(q) != len(c.joints) {
 		panic(fmt.Sprintf("sim: Chain.Forward: len(q) = %d, chain has %d joints", len(q), len(c.joints)))
 	}
-	frame := base
+	frame := &base // the previous joint's moved frame, world
 	for i := range c.joints {
 		j := &c.joints[i]
-		f := frame.Mul(j.Origin) // joint frame at zero position, world
-		ws.axis[i] = f.Rotate(j.Axis)
+		var f Pose // this joint's frame at zero position, world
+		poseMulTo(&f, frame, &j.Origin)
+		w := rotApply(&f.R, j.Axis)
+		ws.axis[i] = w
 		ws.origin[i] = f.P
-		var motion Pose
+		m := &ws.moved[i]
 		if j.Kind == Prismatic {
-			motion = Pose{R: Identity().R, P: [3]float64{q[i] * j.Axis[0], q[i] * j.Axis[1], q[i] * j.Axis[2]}}
+			m.R = f.R
+			m.P = [3]float64{f.P[0] + q[i]*w[0], f.P[1] + q[i]*w[1], f.P[2] + q[i]*w[2]}
 		} else {
-			motion = Pose{R: AxisAngle(j.Axis, q[i])}
+			r := AxisAngle(j.Axis, q[i])
+			m.R = rotMul(&f.R, &r)
+			m.P = f.P
 		}
-		frame = f.Mul(motion)
-		ws.moved[i] = frame
+		frame = m
 	}
-	ws.tip = frame.Mul(c.tip)
+	poseMulTo(&ws.tip, frame, &c.tip)
 	ws.ready = true
 	return ws.tip
 }

@@ -89,6 +89,13 @@ func (a Pose) Inverse() Pose {
 	return out
 }
 
+// poseMulTo sets dst = a·b. dst may alias neither a nor b.
+func poseMulTo(dst, a, b *Pose) {
+	dst.R = rotMul(&a.R, &b.R)
+	v := rotApply(&a.R, b.P)
+	dst.P = [3]float64{v[0] + a.P[0], v[1] + a.P[1], v[2] + a.P[2]}
+}
+
 // rotMul returns the 3×3 product a·b of two row-major matrices.
 func rotMul(a, b *[9]float64) [9]float64 {
 	var out [9]float64
