@@ -94,7 +94,9 @@ func NewReader(src io.ReaderAt, size int64) (*Reader, error) {
 
 func newReader(name string, src io.ReaderAt, size int64) (*Reader, error) {
 	r := &Reader{name: name, src: src, size: size, last: -1}
-	r.br = bufio.NewReaderSize(io.NewSectionReader(src, 0, size), 64<<10)
+	// A buffer no larger than the file: small captures are read often
+	// (tests, fuzzing), large ones in 64 KiB reads.
+	r.br = bufio.NewReaderSize(io.NewSectionReader(src, 0, size), int(max(16, min(size, 64<<10))))
 	if err := r.readHeader(); err != nil {
 		return nil, err
 	}

@@ -85,7 +85,7 @@ type Writer struct {
 	mu      sync.Mutex
 	synced  *sync.Cond // signalled when syncing drops
 	syncing int        // fsyncs running outside mu
-	f       *os.File
+	f       partFile
 	buf     *bufio.Writer
 	frame   []byte // encoding scratch
 	files   []string
@@ -101,6 +101,19 @@ type Writer struct {
 
 	stop chan struct{} // closed by Close to end the sync goroutine
 	done chan struct{} // closed by the sync goroutine when it ends
+}
+
+// partFile is what a Writer needs of a file; tests substitute failing ones.
+type partFile interface {
+	Write(p []byte) (int, error)
+	Sync() error
+	Close() error
+	Name() string
+}
+
+// createPart creates a new part file, refusing to replace one.
+var createPart = func(name string) (partFile, error) {
+	return os.OpenFile(name, os.O_WRONLY|os.O_CREATE|os.O_EXCL, 0o644)
 }
 
 // PartPath names part n (from 1) of a capture split by Settings.MaxFileBytes:
@@ -172,7 +185,7 @@ func (w *Writer) openPart() error {
 	if w.settings.MaxFileBytes > 0 {
 		name = PartPath(w.path, n)
 	}
-	f, err := os.OpenFile(name, os.O_WRONLY|os.O_CREATE|os.O_EXCL, 0o644)
+	f, err := createPart(name)
 	if err != nil {
 		return fmt.Errorf("capture: creating %w", err)
 	}
