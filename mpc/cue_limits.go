@@ -49,7 +49,9 @@ func checkCueLimits(tt *timeTable, order []int, sp *cubicSpline, joints []CueJoi
 			Msg: fmt.Sprintf("the cue is %s s long; checking it every %s s would take more than %d samples", fmtNum(end-start), fmtNum(sampleStepS), maxCueSamples)}}
 	}
 	peaks := make([]JointPeak, len(joints))
+	bounds := make([]jointBounds, len(joints))
 	for j, jt := range joints {
+		bounds[j] = boundsOf(jt)
 		peaks[j] = JointPeak{Name: jt.Name, MinPosition: math.Inf(1), MaxPosition: math.Inf(-1), PeakSpeedAtS: start, PeakAccelAtS: start}
 	}
 	knots := sp.knotsS
@@ -87,7 +89,8 @@ func checkCueLimits(tt *timeTable, order []int, sp *cubicSpline, joints []CueJoi
 				if u == 0 || u >= h {
 					pos = tt.rows[row].values[order[j]] // the spline passes through the row exactly
 				}
-				if msg := limitBreach(jt, pos, vel, acc, t); msg != "" {
+				if !bounds[j].hold(pos, vel, acc) {
+					msg := limitBreach(jt, bounds[j], pos, vel, acc, t)
 					r := tt.rows[row]
 					return nil, sim.FileErrors{{File: tt.file, Line: r.line, Col: tt.columnOfField(r, order[j]),
 						Field: fieldName(jt.Name, order[j]+1), Msg: msg}}
@@ -136,26 +139,48 @@ func units(jt CueJoint) (pos, vel, acc string) {
 	return "rad", "rad/s", "rad/s²"
 }
 
-// limitBreach returns a message if the sample breaks one of the joint's
-// limits (position first, then velocity, then acceleration), or "".
-func limitBreach(jt CueJoint, pos, vel, acc, t float64) string {
+// jointBounds are a joint's limits widened by limitSlack, computed once per
+// load so the per-sample test is four comparisons.
+type jointBounds struct{ lower, upper, speed, accel float64 }
+
+func boundsOf(jt CueJoint) jointBounds {
+	return jointBounds{
+		lower: jt.Lower - limitSlack(jt.Lower),
+		upper: jt.Upper + limitSlack(jt.Upper),
+		speed: jt.MaxVelocity + limitSlack(jt.MaxVelocity),
+		accel: jt.MaxAccel + limitSlack(jt.MaxAccel),
+	}
+}
+
+func (b jointBounds) hold(pos, vel, acc float64) bool {
+	return pos <= b.upper && pos >= b.lower && math.Abs(vel) <= b.speed && math.Abs(acc) <= b.accel
+}
+
+// limitBreach says which of the joint's limits the sample breaks (position
+// first, then velocity, then acceleration); it is called only when
+// b.hold failed, which a NaN also causes.
+func limitBreach(jt CueJoint, b jointBounds, pos, vel, acc, t float64) string {
 	pu, vu, au := units(jt)
 	switch {
-	case pos > jt.Upper+limitSlack(jt.Upper):
+	case pos > b.upper:
 		return fmt.Sprintf("position %s %s at t=%s s is above the upper limit %s %s", fmtNum(pos), pu, fmtNum(t), fmtNum(jt.Upper), pu)
-	case pos < jt.Lower-limitSlack(jt.Lower):
+	case pos < b.lower:
 		return fmt.Sprintf("position %s %s at t=%s s is below the lower limit %s %s", fmtNum(pos), pu, fmtNum(t), fmtNum(jt.Lower), pu)
-	case math.Abs(vel) > jt.MaxVelocity+limitSlack(jt.MaxVelocity):
+	case math.Abs(vel) > b.speed:
 		return fmt.Sprintf("velocity %s %s at t=%s s exceeds the limit %s %s; slow the cue down here", fmtNum(vel), vu, fmtNum(t), fmtNum(jt.MaxVelocity), vu)
-	case math.Abs(acc) > jt.MaxAccel+limitSlack(jt.MaxAccel):
+	case math.Abs(acc) > b.accel:
 		return fmt.Sprintf("acceleration %s %s at t=%s s exceeds the limit %s %s; space the rows out or smooth the motion here", fmtNum(acc), au, fmtNum(t), fmtNum(jt.MaxAccel), au)
 	}
-	return ""
+	return fmt.Sprintf("the spline is not finite at t=%s s (position %v, velocity %v, acceleration %v)", fmtNum(t), pos, vel, acc)
 }
 
 func updatePeak(p *JointPeak, jt CueJoint, pos, vel, acc, t float64) {
-	p.MinPosition = math.Min(p.MinPosition, pos)
-	p.MaxPosition = math.Max(p.MaxPosition, pos)
+	if pos < p.MinPosition {
+		p.MinPosition = pos
+	}
+	if pos > p.MaxPosition {
+		p.MaxPosition = pos
+	}
 	if v := math.Abs(vel); v > p.PeakSpeed {
 		p.PeakSpeed, p.PeakSpeedAtS = v, t
 		if !math.IsInf(jt.MaxVelocity, 1) {
