@@ -140,7 +140,11 @@ func (p *urdfParser) next() (xml.Token, xmlPos, error) {
 		if errors.As(err, &se) {
 			p.errs = append(p.errs, &FileError{File: p.file, Line: se.Line, Msg: "not well-formed XML: " + se.Msg})
 		} else {
-			p.errs = append(p.errs, &FileError{File: p.file, Line: at.line, Col: at.col, Msg: "XML: " + err.Error()})
+			msg := "XML: " + err.Error()
+			if strings.Contains(msg, "CharsetReader") {
+				msg = "the file declares an encoding other than UTF-8: save it as UTF-8 (" + err.Error() + ")"
+			}
+			p.errs = append(p.errs, &FileError{File: p.file, Line: at.line, Col: at.col, Msg: msg})
 		}
 		return nil, at, errFatal
 	}

@@ -107,6 +107,7 @@ func TestMalformedURDF(t *testing.T) {
 		msg   string // a phrase the message must contain
 	}{
 		{"bad_xml.urdf", "", "", "not well-formed XML"},
+		{"bad_encoding.urdf", "", "<?xml", "save it as UTF-8"},
 		{"bad_root.urdf", "model", "<model", "root element"},
 		{"bad_empty.urdf", "", "", "no <robot> element"},
 		{"bad_mimic.urdf", "joint[j2]/mimic", "<mimic", "mimic joints are not supported"},
