@@ -17,7 +17,7 @@ build:
 	$(GO) build -o bin/ ./client/cmd/... ./server/cmd/... 2>/dev/null || true
 
 ## test: the README's test command; CI runs it through .ci/run.
-test: fmt-check vet
+test: fmt-check vet proto-check
 	$(GO) test -count=1 $(PKGS)
 
 vet:
