@@ -45,6 +45,15 @@ func (e *Estimator) gateAndUpdate(markers []MarkerObs, rep *EstimatorReport) err
 		}
 		e.accepted = append(e.accepted, i)
 	}
+	if nr := len(rep.Rejected); nr >= 2 && 2*nr > len(markers) {
+		// Most markers disagree with the state: trust the markers.
+		rep.GateOverruled = true
+		rep.Rejected = rep.Rejected[:0]
+		e.accepted = e.accepted[:0]
+		for i := range markers {
+			e.accepted = append(e.accepted, i)
+		}
+	}
 	rep.MarkersUsed = len(e.accepted)
 	k := 3 * len(e.accepted)
 	if k == 0 {
