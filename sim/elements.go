@@ -77,8 +77,11 @@ func (m *Model) nodeDiff(x []float64, a, b int) [3]float64 {
 // measured from y, which changes E by a constant and keeps its rounding
 // small. It writes ∇E into g (external node order, zero on anchored nodes)
 // and, unless mode is hessNone, adds the Hessian of the free nodes into
-// hess (band order). It returns E and the sum of the magnitudes of its
-// terms (a scale for rounding). x, xc (x_t) and y must hold the anchored
+// hess (band order). It returns E and its rounding scale: the sum, over
+// its terms, of each term's sensitivity to its inputs times their size
+// (a rod's ½k(l−L)² computed from coordinates of size |x| is uncertain
+// by about k·|l−L|·eps·(l+L), not by eps times itself); the rounding error
+// of E is a small multiple of eps times this scale. x, xc (x_t) and y must hold the anchored
 // nodes' file positions.
 func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hessMode, hess *bandMatrix) (e, scale float64) {
 	invH2, invH := 1/(h*h), 1/h
@@ -95,11 +98,12 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 			dv := x[3*i+c] - xc[3*i+c]
 			ei += 0.5*mi*invH2*dy*dy + 0.5*ci*invH*dv*dv
 			g[3*i+c] = mi*invH2*dy + ci*invH*dv
+			scale += (mi*invH2*math.Abs(dy) + ci*invH*math.Abs(dv)) * (math.Abs(x[3*i+c]) + math.Abs(y[3*i+c]) + math.Abs(xc[3*i+c]))
 		}
 		eg := mi * m.gravity * (x[3*i+2] - y[3*i+2])
 		g[3*i+2] += mi * m.gravity
 		e += ei + eg
-		scale += ei + math.Abs(eg)
+		scale += mi * math.Abs(m.gravity) * (math.Abs(x[3*i+2]) + math.Abs(y[3*i+2]))
 		if mode != hessNone {
 			p := m.slot[i]
 			dg := mi*invH2 + ci*invH
@@ -131,13 +135,14 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 				dt := m.nodeDiff(xc, r.a, r.b)
 				s := (d[0]-dt[0])*ut[0] + (d[1]-dt[1])*ut[1] + (d[2]-dt[2])*ut[2]
 				er += 0.5 * r.c * invH * s * s
+				scale += r.c * invH * math.Abs(s) * (l + lt)
 				for c := range 3 {
 					force[c] += r.c * invH * s * ut[c]
 				}
 			}
 		}
 		e += er
-		scale += er
+		scale += math.Abs(f)*(l+r.restLen) + math.Abs(er)
 		for c := range 3 {
 			g[3*r.a+c] += force[c]
 			g[3*r.b+c] -= force[c]
@@ -165,7 +170,7 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 		u, l := unitOf(d)
 		phi, t, kappa := stringRamp(l-st.RestLengthM, st.StiffnessNPerM, m.slackW)
 		e += phi
-		scale += phi
+		scale += t*(l+st.RestLengthM) + phi
 		if m.anchored[n] {
 			continue
 		}
@@ -276,5 +281,42 @@ func (m *Model) StringTension(i int, x, anchors []float64) float64 {
 func (m *Model) checkLens(x, xPrev, anchors []float64) {
 	if len(x) != m.Dim() || (xPrev != nil && len(xPrev) != m.Dim()) || len(anchors) != 3*len(m.strs) {
 		panic("sim: state or anchor vector of the wrong length")
+	}
+}
+
+// roundingFloor writes into floor, per node, the size of the rounding
+// error expected in that node's gradient: machine epsilon times the sum
+// of the magnitudes that enter it (inertia m/h²·|x|, drag, weight, and
+// k·(l + L) of every rod and string at the node — a rod force is
+// k·(|d| − L), so its rounding follows |d| and L, not the force). A
+// residual at this level cannot be reduced further, so the convergence
+// test (scaledGrad) discounts it; without this a very stiff rod could
+// never reach a tight tolerance.
+func (m *Model) roundingFloor(floor, x, xc, y, anchors []float64, h float64) {
+	const eps = 0x1p-52
+	invH2, invH := 1/(h*h), 1/h
+	norm := func(v []float64, i int) float64 {
+		return math.Abs(v[3*i]) + math.Abs(v[3*i+1]) + math.Abs(v[3*i+2])
+	}
+	for i := range m.nNodes {
+		floor[i] = m.mass[i]*invH2*(norm(x, i)+norm(y, i)) + m.drag[i]*invH*(norm(x, i)+norm(xc, i)) + m.mass[i]*math.Abs(m.gravity)
+	}
+	for ri := range m.rods {
+		r := &m.rods[ri]
+		_, l := unitOf(m.nodeDiff(x, r.a, r.b))
+		_, lt := unitOf(m.nodeDiff(xc, r.a, r.b))
+		v := r.k*(l+r.restLen) + r.c*invH*(l+lt)
+		floor[r.a] += v
+		floor[r.b] += v
+	}
+	for si := range m.strs {
+		st := &m.strs[si]
+		n := st.Node
+		d := [3]float64{x[3*n] - anchors[3*si], x[3*n+1] - anchors[3*si+1], x[3*n+2] - anchors[3*si+2]}
+		_, l := unitOf(d)
+		floor[n] += st.StiffnessNPerM * (l + st.RestLengthM)
+	}
+	for i := range floor {
+		floor[i] *= 16 * eps
 	}
 }

@@ -73,6 +73,11 @@ type Model struct {
 	slot  []int // node → position in the band order, -1 for anchored nodes
 	order []int // band position → node
 	kd    int   // scalar half-bandwidth of the free-node Hessian
+
+	// firstHess is the Hessian tried first for Newton directions:
+	// hessExact, or hessProjected to always project (for comparison in
+	// benchmarks).
+	firstHess hessMode
 }
 
 type modelRod struct {
@@ -105,6 +110,8 @@ func NewModel(fig *Figure, strs []StringLink, s ModelSettings) (*Model, error) {
 		anchored: make([]bool, n),
 		fixedPos: make([]float64, 3*n),
 		strs:     append([]StringLink(nil), strs...),
+
+		firstHess: hessExact,
 	}
 	if m.gravity == 0 {
 		m.gravity = StandardGravityMPerS2

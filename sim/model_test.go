@@ -112,3 +112,7 @@ func TestNewModelRefusesBadInput(t *testing.T) {
 		t.Errorf("Dim %d NumAnchors %d", m.Dim(), m.NumAnchors())
 	}
 }
+
+type denseT = mat.Dense
+
+func newDense(r, c int) *mat.Dense { return mat.NewDense(r, c, nil) }

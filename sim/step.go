@@ -13,6 +13,7 @@ type Workspace struct {
 	m *Model
 
 	x, xc, xp, y, g  []float64 // external order, length Dim
+	floor            []float64 // per node: rounding level of the gradient
 	xTry, gTry, dir  []float64
 	anchors          []float64
 	rhs              []float64 // band order, length 3×free nodes
@@ -43,6 +44,7 @@ func (m *Model) NewWorkspace() *Workspace {
 		*p = make([]float64, n)
 	}
 	ws.anchors = make([]float64, 3*len(m.strs))
+	ws.floor = make([]float64, m.nNodes)
 	ws.rhs = make([]float64, nf)
 	ws.hess.reset(nf, m.kd)
 	ws.own.init(m)
@@ -124,7 +126,8 @@ func (m *Model) newton(ws *Workspace, x []float64, h float64, maxIters int) erro
 	e, _ := m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, hessNone, nil)
 	ws.iters = 0
 	for {
-		res := m.scaledGrad(ws.g, h)
+		m.roundingFloor(ws.floor, x, ws.xc, ws.y, ws.anchors, h)
+		res := m.scaledGrad(ws.g, ws.floor, h)
 		if res <= m.gradTol {
 			return nil
 		}
@@ -133,7 +136,7 @@ func (m *Model) newton(ws *Workspace, x []float64, h float64, maxIters int) erro
 		}
 		ws.iters++
 		var err error
-		if e, err = m.newtonIter(ws, x, h, e, res); err != nil {
+		if e, _, err = m.newtonIter(ws, x, h, e, res); err != nil {
 			return err
 		}
 	}
@@ -141,40 +144,52 @@ func (m *Model) newton(ws *Workspace, x []float64, h float64, maxIters int) erro
 
 // newtonIter takes one Newton iteration from x (in place, with its
 // objective e, gradient in ws.g and mass-scaled residual res): the search
-// direction solves the projected Hessian, and a backtracking line search
+// direction solves the exact Hessian if it is positive definite and the
+// projected one otherwise, and a backtracking line search
 // on E accepts the first step of sufficient decrease. It returns the new E
-// with the new gradient in ws.g.
-func (m *Model) newtonIter(ws *Workspace, x []float64, h, e, res float64) (float64, error) {
+// with the new gradient in ws.g, and the step length taken (1 for a full
+// Newton step).
+func (m *Model) newtonIter(ws *Workspace, x []float64, h, e, res float64) (eNew, alpha float64, err error) {
 	const (
 		armijo      = 1e-4 // sufficient decrease (common practice, Nocedal & Wright, Numerical Optimization, §3.1)
 		maxHalvings = 40
 	)
+	// The exact Hessian first: when it is positive definite (usual, as the
+	// mass term M/h² dominates) Newton converges quadratically. Otherwise
+	// the projected one, which always is, and still gives descent.
 	ws.hess.reset(ws.hess.n, ws.hess.kd)
-	_, scale := m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, hessProjected, &ws.hess)
+	_, scale := m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, m.firstHess, &ws.hess)
 	if !ws.hess.factorize() {
-		return e, fmt.Errorf("%w: the projected Hessian could not be factorised", ErrNoConvergence)
+		ws.hess.reset(ws.hess.n, ws.hess.kd)
+		m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, hessProjected, &ws.hess)
+		if !ws.hess.factorize() {
+			return e, 0, fmt.Errorf("%w: the projected Hessian could not be factorised", ErrNoConvergence)
+		}
 	}
 	m.toBand(ws.rhs, ws.g)
 	ws.hess.solve(ws.rhs, 1)
 	m.fromBand(ws.dir, ws.rhs, -1)
 	slope := dot(ws.g, ws.dir)
-	alpha := 1.0
+	// E's rounding level (see incremental).
+	roundE := 16 * 0x1p-52 * scale
+	alpha = 1.0
 	for range maxHalvings {
 		for k := range x {
 			ws.xTry[k] = x[k] + alpha*ws.dir[k]
 		}
 		eTry, _ := m.incremental(ws.gTry, ws.xTry, ws.xc, ws.y, ws.anchors, h, hessNone, nil)
-		// Armijo decrease; or, when the change of E is lost in rounding
-		// (near the solution), a smaller gradient.
+		// Armijo's sufficient decrease; or, near the solution where the
+		// change of E is lost in rounding, a step that keeps E within its
+		// rounding and at least halves the residual.
 		if eTry <= e+armijo*alpha*slope ||
-			(math.Abs(eTry-e) <= 1e-13*scale && m.scaledGrad(ws.gTry, h) < res) {
+			(eTry <= e+roundE && m.scaledGrad(ws.gTry, ws.floor, h) <= res/2) {
 			copy(x, ws.xTry)
 			copy(ws.g, ws.gTry)
-			return eTry, nil
+			return eTry, alpha, nil
 		}
 		alpha /= 2
 	}
-	return e, fmt.Errorf("%w: the line search found no decrease (mass-scaled residual %.3g m)", ErrNoConvergence, res)
+	return e, 0, fmt.Errorf("%w: the line search found no decrease (mass-scaled residual %.3g m)", ErrNoConvergence, res)
 }
 
 // finishStep factorises the exact Hessian at the solution ws.x and computes
@@ -190,15 +205,16 @@ func (m *Model) finishStep(ws *Workspace) error {
 	return nil
 }
 
-// scaledGrad is max over free nodes of |∇E_i|·h²/m_i: the position error,
-// in metres, that the residual force implies.
-func (m *Model) scaledGrad(g []float64, h float64) float64 {
+// scaledGrad is the largest, over free nodes, of (|∇E_i| − floor_i)·h²/m_i:
+// the position error in metres that the residual force implies, beyond
+// what rounding alone produces (roundingFloor).
+func (m *Model) scaledGrad(g, floor []float64, h float64) float64 {
 	var worst float64
 	for i := range m.nNodes {
 		if m.anchored[i] {
 			continue
 		}
-		s := math.Sqrt(g[3*i]*g[3*i]+g[3*i+1]*g[3*i+1]+g[3*i+2]*g[3*i+2]) * h * h / m.mass[i]
+		s := (math.Sqrt(g[3*i]*g[3*i]+g[3*i+1]*g[3*i+1]+g[3*i+2]*g[3*i+2]) - floor[i]) * h * h / m.mass[i]
 		if !(s <= worst) { // also catches NaN
 			worst = s
 		}

@@ -7,8 +7,9 @@ import "fmt"
 // found from the figure's file positions. It takes proximal Newton
 // iterations: each is one Newton iteration of the implicit step from rest
 // (x_t = x_{t−1} = the current pose) with a relaxation time step that
-// doubles after every iteration, so far from equilibrium it moves like
-// heavily damped motion and near it becomes Newton's method on U. At a
+// doubles after every full Newton step and shrinks after a step the line
+// search had to cut, so far from equilibrium it moves like heavily damped
+// motion and near it becomes Newton's method on U. At a
 // pose at rest the step's gradient is exactly ∇U, so it stops when every
 // free node's |∇U|·h²/m (h the model's step) is within the model's
 // gradient tolerance. A figure that cannot rest (a node hanging from
@@ -19,6 +20,7 @@ func (m *Model) RestPose(ws *Workspace, dst, anchors []float64) error {
 		maxIters    = 400
 		firstRelaxS = 0.05
 		maxRelaxS   = 1e4
+		minRelaxS   = 1e-4
 	)
 	m.checkLens(dst, nil, anchors)
 	ws.valid = false
@@ -33,14 +35,23 @@ func (m *Model) RestPose(ws *Workspace, dst, anchors []float64) error {
 		copy(ws.xc, ws.x)
 		copy(ws.y, ws.x)
 		e, _ := m.incremental(ws.g, ws.x, ws.xc, ws.y, ws.anchors, hRelax, hessNone, nil)
-		if m.scaledGrad(ws.g, m.h) <= m.gradTol {
+		m.roundingFloor(ws.floor, ws.x, ws.xc, ws.y, ws.anchors, hRelax)
+		if m.scaledGrad(ws.g, ws.floor, m.h) <= m.gradTol {
 			copy(dst, ws.x)
 			return nil
 		}
-		if _, err := m.newtonIter(ws, ws.x, hRelax, e, m.scaledGrad(ws.g, hRelax)); err != nil {
+		_, alpha, err := m.newtonIter(ws, ws.x, hRelax, e, m.scaledGrad(ws.g, ws.floor, hRelax))
+		if err != nil {
 			return err
 		}
-		hRelax = min(2*hRelax, maxRelaxS)
+		// Trust the model further after a full Newton step, less after a
+		// cut one (a Levenberg–Marquardt-like update of the mass term).
+		switch {
+		case alpha == 1:
+			hRelax = min(2*hRelax, maxRelaxS)
+		case alpha < 0.25:
+			hRelax = max(hRelax/4, minRelaxS)
+		}
 	}
 	return fmt.Errorf("%w: no static equilibrium after %d relaxation iterations", ErrNoConvergence, maxIters)
 }
