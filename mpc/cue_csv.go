@@ -184,7 +184,7 @@ func parseTimeTable(file string, data []byte, kind string, checkHeader func(*tim
 		}
 		t := row.values[0]
 		if prevTimeLine > 0 && !(t > prevTime) {
-			el.add(lineNo, l.cols[0], fieldName("time_s", 1), "time %s s is not after %s s on line %d; times must strictly increase", fmtNum(t), fmtNum(prevTime), prevTimeLine)
+			el.add(lineNo, l.cols[0], fieldName("time_s", 1), "time %s s is not after %s s on line %d; times must strictly increase", fmtTime(t), fmtTime(prevTime), prevTimeLine)
 		}
 		prevTime, prevTimeLine = t, lineNo
 		tt.rows = append(tt.rows, row)
@@ -238,6 +238,11 @@ func parseFinite(f string) (float64, string) {
 // fmtNum prints a number for a message: short, but exact enough to find the
 // row.
 func fmtNum(v float64) string { return strconv.FormatFloat(v, 'g', 6, 64) }
+
+// fmtTime prints a cue time for a message: 9 significant digits keep
+// sub-millisecond resolution for cues up to hours long while rounding away
+// floating-point noise such as 0.7810000000000001.
+func fmtTime(t float64) string { return strconv.FormatFloat(t, 'g', 9, 64) }
 
 // columnOfField returns the 1-based character column where field i of the
 // row starts, for messages about a row found after parsing.

@@ -163,15 +163,15 @@ func limitBreach(jt CueJoint, b jointBounds, pos, vel, acc, t float64) string {
 	pu, vu, au := units(jt)
 	switch {
 	case pos > b.upper:
-		return fmt.Sprintf("position %s %s at t=%s s is above the upper limit %s %s", fmtNum(pos), pu, fmtNum(t), fmtNum(jt.Upper), pu)
+		return fmt.Sprintf("position %s %s at t=%s s is above the upper limit %s %s", fmtNum(pos), pu, fmtTime(t), fmtNum(jt.Upper), pu)
 	case pos < b.lower:
-		return fmt.Sprintf("position %s %s at t=%s s is below the lower limit %s %s", fmtNum(pos), pu, fmtNum(t), fmtNum(jt.Lower), pu)
+		return fmt.Sprintf("position %s %s at t=%s s is below the lower limit %s %s", fmtNum(pos), pu, fmtTime(t), fmtNum(jt.Lower), pu)
 	case math.Abs(vel) > b.speed:
-		return fmt.Sprintf("velocity %s %s at t=%s s exceeds the limit %s %s; slow the cue down here", fmtNum(vel), vu, fmtNum(t), fmtNum(jt.MaxVelocity), vu)
+		return fmt.Sprintf("velocity %s %s at t=%s s exceeds the limit %s %s; slow the cue down here", fmtNum(vel), vu, fmtTime(t), fmtNum(jt.MaxVelocity), vu)
 	case math.Abs(acc) > b.accel:
-		return fmt.Sprintf("acceleration %s %s at t=%s s exceeds the limit %s %s; space the rows out or smooth the motion here", fmtNum(acc), au, fmtNum(t), fmtNum(jt.MaxAccel), au)
+		return fmt.Sprintf("acceleration %s %s at t=%s s exceeds the limit %s %s; space the rows out or smooth the motion here", fmtNum(acc), au, fmtTime(t), fmtNum(jt.MaxAccel), au)
 	}
-	return fmt.Sprintf("the spline is not finite at t=%s s (position %v, velocity %v, acceleration %v)", fmtNum(t), pos, vel, acc)
+	return fmt.Sprintf("the spline is not finite at t=%s s (position %v, velocity %v, acceleration %v)", fmtTime(t), pos, vel, acc)
 }
 
 func updatePeak(p *JointPeak, jt CueJoint, pos, vel, acc, t float64) {
