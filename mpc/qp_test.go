@@ -1,0 +1,570 @@
+package mpc
+
+import (
+	"errors"
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"gonum.org/v1/gonum/mat"
+)
+
+// randomQP builds a strictly convex QP that is feasible by construction:
+// every constraint is built around a random point zf, some rows are
+// equalities (Lo = Hi = Cᵢzf), some are tight at zf on one side, and the
+// gradient pulls the unconstrained minimum far outside so that many
+// constraints are active at the optimum.
+func randomQP(rng *rand.Rand, n, m int) *QP {
+	a := mat.NewDense(n+3, n, nil)
+	for i := range n + 3 {
+		for j := range n {
+			a.Set(i, j, rng.NormFloat64())
+		}
+	}
+	h := mat.NewSymDense(n, nil)
+	h.SymOuterK(1, a.T())
+	for i := range n {
+		h.SetSym(i, i, h.At(i, i)+0.1)
+	}
+	zf := make([]float64, n)
+	for j := range zf {
+		zf[j] = rng.NormFloat64()
+	}
+	qp := &QP{H: h, G: make([]float64, n), Lo: make([]float64, m), Hi: make([]float64, m),
+		LB: make([]float64, n), UB: make([]float64, n)}
+	for j := range qp.G {
+		qp.G[j] = 10 * rng.NormFloat64()
+	}
+	if m > 0 {
+		qp.C = mat.NewDense(m, n, nil)
+	}
+	equalities := 0
+	for i := range m {
+		t := 0.0
+		for j := range n {
+			c := rng.NormFloat64()
+			if rng.IntN(3) == 0 {
+				c = 0 // some sparsity, as in difference rows
+			}
+			qp.C.Set(i, j, c)
+			t += c * zf[j]
+		}
+		switch k := rng.IntN(10); {
+		case k == 0 && equalities < n/3:
+			equalities++
+			qp.Lo[i], qp.Hi[i] = t, t
+		case k == 1:
+			qp.Lo[i], qp.Hi[i] = t, t+rng.Float64()
+		case k == 2:
+			qp.Lo[i], qp.Hi[i] = math.Inf(-1), t
+		case k == 3:
+			qp.Lo[i], qp.Hi[i] = t-rng.Float64(), math.Inf(1)
+		default:
+			qp.Lo[i], qp.Hi[i] = t-2*rng.Float64(), t+2*rng.Float64()
+		}
+	}
+	for j := range n {
+		switch rng.IntN(6) {
+		case 0:
+			qp.LB[j], qp.UB[j] = math.Inf(-1), math.Inf(1)
+		case 1:
+			qp.LB[j], qp.UB[j] = zf[j], zf[j]+rng.Float64()
+		default:
+			qp.LB[j], qp.UB[j] = zf[j]-rng.Float64(), zf[j]+rng.Float64()
+		}
+	}
+	return qp
+}
+
+// kktResidual measures the KKT conditions of a QP at (z, y, w) — Nocedal &
+// Wright, Numerical Optimization, 2nd ed., Theorem 12.1 and (16.37) — each
+// relative to the size of the terms it compares, with gonum mat doing the
+// products independently of the solver:
+//
+//	stationarity     ‖Hz + g + Cᵀy + w‖∞ / (1 + max(‖Hz‖∞, ‖g‖∞, ‖Cᵀy‖∞, ‖w‖∞))
+//	primal           max violation of Lo ≤ Cz ≤ Hi, LB ≤ z ≤ UB, / (1 + |bound|)
+//	dual             max of yᵢ⁺ where Hiᵢ = +Inf, yᵢ⁻ where Loᵢ = −Inf (same for w),
+//	                 relative to 1 + ‖y, w‖∞
+//	complementarity  max of yᵢ⁺·(Hiᵢ − Cᵢz) and yᵢ⁻·(Cᵢz − Loᵢ) (same for w),
+//	                 relative to (1 + ‖y, w‖∞)(1 + |bound|)
+func kktResidual(qp *QP, z, y, w []float64) (stat, primal, dual, compl float64) {
+	n := len(z)
+	zv := mat.NewVecDense(n, append([]float64(nil), z...))
+	var hz, cz mat.VecDense
+	hz.MulVec(qp.H, zv)
+	cty := mat.NewVecDense(n, nil)
+	m := len(qp.Lo)
+	if m > 0 {
+		cty.MulVec(qp.C.T(), mat.NewVecDense(m, append([]float64(nil), y...)))
+		cz.MulVec(qp.C, zv)
+	}
+	scale := 1.0
+	multScale := 1.0
+	for j := range n {
+		scale = math.Max(scale, 1+math.Max(math.Max(math.Abs(hz.AtVec(j)), math.Abs(qp.G[j])), math.Max(math.Abs(cty.AtVec(j)), math.Abs(w[j]))))
+		multScale = math.Max(multScale, 1+math.Abs(w[j]))
+	}
+	for i := range m {
+		multScale = math.Max(multScale, 1+math.Abs(y[i]))
+	}
+	for j := range n {
+		stat = math.Max(stat, math.Abs(hz.AtVec(j)+qp.G[j]+cty.AtVec(j)+w[j])/scale)
+	}
+	side := func(t, lo, hi, mult float64) {
+		if !math.IsInf(lo, -1) {
+			primal = math.Max(primal, (lo-t)/(1+math.Abs(lo)))
+		}
+		if !math.IsInf(hi, 1) {
+			primal = math.Max(primal, (t-hi)/(1+math.Abs(hi)))
+		}
+		if mult > 0 {
+			if math.IsInf(hi, 1) {
+				dual = math.Max(dual, mult/multScale)
+			} else {
+				compl = math.Max(compl, mult*math.Abs(hi-t)/(multScale*(1+math.Abs(hi))))
+			}
+		}
+		if mult < 0 {
+			if math.IsInf(lo, -1) {
+				dual = math.Max(dual, -mult/multScale)
+			} else {
+				compl = math.Max(compl, -mult*math.Abs(t-lo)/(multScale*(1+math.Abs(lo))))
+			}
+		}
+	}
+	for i := range m {
+		side(cz.AtVec(i), qp.Lo[i], qp.Hi[i], y[i])
+	}
+	for j := range n {
+		lo, hi := math.Inf(-1), math.Inf(1)
+		if qp.LB != nil {
+			lo = qp.LB[j]
+		}
+		if qp.UB != nil {
+			hi = qp.UB[j]
+		}
+		side(z[j], lo, hi, w[j])
+	}
+	return stat, primal, dual, compl
+}
+
+// TestQPSatisfiesKKT: random feasible strictly convex QPs of many sizes, with
+// equality rows, one-sided tight rows and bounds; every solution must meet
+// the KKT conditions to 1e-8 (issue 4 §4; the conditions from Nocedal &
+// Wright ch. 12 and 16). 1e-8 is the issue's figure; the solver's own
+// feasibility tolerance is 1e-11, so the margin is for rounding in J, R.
+func TestQPSatisfiesKKT(t *testing.T) {
+	rng := rand.New(rand.NewPCG(12, 16))
+	sizes := [][2]int{{1, 0}, {1, 2}, {2, 3}, {3, 6}, {5, 0}, {5, 12}, {10, 30}, {20, 60}, {48, 200}, {80, 150}, {120, 400}}
+	const tol = 1e-8
+	active := 0
+	var worst [4]float64
+	for _, nm := range sizes {
+		n, m := nm[0], nm[1]
+		trials := 20
+		if n >= 48 {
+			trials = 4
+		}
+		s := NewQPSolver(n, m, QPSettings{})
+		z := make([]float64, n)
+		for trial := range trials {
+			qp := randomQP(rng, n, m)
+			res, err := s.Solve(z, qp, false)
+			if err != nil {
+				t.Fatalf("n=%d m=%d trial %d: %v", n, m, trial, err)
+			}
+			stat, primal, dual, compl := kktResidual(qp, z, res.RowMult, res.BoundMult)
+			for k, r := range [4]float64{stat, primal, dual, compl} {
+				worst[k] = math.Max(worst[k], r)
+			}
+			if !(stat <= tol && primal <= tol && dual <= tol && compl <= tol) { // NaN fails too
+				t.Errorf("n=%d m=%d trial %d: KKT residuals stationarity %.2g primal %.2g dual %.2g complementarity %.2g, want ≤ %g",
+					n, m, trial, stat, primal, dual, compl, tol)
+			}
+			for i, sd := range res.RowSide {
+				if sd != QPInactive {
+					active++
+				} else if res.RowMult[i] != 0 {
+					t.Errorf("n=%d m=%d: inactive row %d has multiplier %v", n, m, i, res.RowMult[i])
+				}
+			}
+		}
+	}
+	if active == 0 {
+		t.Fatal("no constraint was ever active: the problems do not test the active-set logic")
+	}
+	t.Logf("worst KKT residuals: stationarity %.2g primal %.2g dual %.2g complementarity %.2g; active rows in total %d",
+		worst[0], worst[1], worst[2], worst[3], active)
+}
+
+// bruteForceQP is the reference for small problems: the optimum of a strictly
+// convex QP is the minimiser of the equality-constrained QP on its optimal
+// active set (Nocedal & Wright, Numerical Optimization, 2nd ed., §16.4, the
+// basis of every active-set method), and every feasible equality-constrained
+// minimiser has an objective no lower than the optimum. So enumerate every
+// set of at most n constraint sides (equalities always in), solve each
+// equality-constrained QP through its KKT system with gonum mat, and keep
+// the feasible one with the lowest objective.
+func bruteForceQP(qp *QP, n int) (best []float64, bestObj float64) {
+	type side struct {
+		normal []float64
+		b      float64
+	}
+	var eqs, ineqs []side
+	m := len(qp.Lo)
+	add := func(c []float64, lo, hi float64) {
+		if lo == hi {
+			eqs = append(eqs, side{c, lo})
+			return
+		}
+		if !math.IsInf(lo, -1) {
+			ineqs = append(ineqs, side{c, lo})
+		}
+		if !math.IsInf(hi, 1) {
+			ineqs = append(ineqs, side{c, hi})
+		}
+	}
+	for i := range m {
+		add(mat.Row(nil, i, qp.C), qp.Lo[i], qp.Hi[i])
+	}
+	for j := range n {
+		e := make([]float64, n)
+		e[j] = 1
+		add(e, qp.LB[j], qp.UB[j])
+	}
+	bestObj = math.Inf(1)
+	feasible := func(z []float64) bool {
+		const tol = 1e-9
+		for i := range m {
+			t := mat.Dot(mat.NewVecDense(n, mat.Row(nil, i, qp.C)), mat.NewVecDense(n, z))
+			if t < qp.Lo[i]-tol*(1+math.Abs(qp.Lo[i])) || t > qp.Hi[i]+tol*(1+math.Abs(qp.Hi[i])) {
+				return false
+			}
+		}
+		for j := range n {
+			if z[j] < qp.LB[j]-tol*(1+math.Abs(qp.LB[j])) || z[j] > qp.UB[j]+tol*(1+math.Abs(qp.UB[j])) {
+				return false
+			}
+		}
+		return true
+	}
+	var rec func(start int, chosen []side)
+	rec = func(start int, chosen []side) {
+		set := append(append([]side(nil), eqs...), chosen...)
+		k := len(set)
+		if k <= n {
+			// [H Nᵀ; N 0] [z; −λ] = [−g; b]
+			kkt := mat.NewDense(n+k, n+k, nil)
+			rhs := mat.NewVecDense(n+k, nil)
+			for i := range n {
+				for j := range n {
+					kkt.Set(i, j, qp.H.At(i, j))
+				}
+				rhs.SetVec(i, -qp.G[i])
+			}
+			for r, s := range set {
+				for j := range n {
+					kkt.Set(n+r, j, s.normal[j])
+					kkt.Set(j, n+r, s.normal[j])
+				}
+				rhs.SetVec(n+r, s.b)
+			}
+			var sol mat.VecDense
+			if err := sol.SolveVec(kkt, rhs); err == nil {
+				z := sol.RawVector().Data[:n]
+				if feasible(z) {
+					obj := qpObjective(qp, z)
+					if obj < bestObj {
+						bestObj, best = obj, append([]float64(nil), z...)
+					}
+				}
+			}
+		}
+		if len(eqs)+len(chosen) >= n {
+			return
+		}
+		for i := start; i < len(ineqs); i++ {
+			rec(i+1, append(chosen, ineqs[i]))
+		}
+	}
+	rec(0, nil)
+	return best, bestObj
+}
+
+func qpObjective(qp *QP, z []float64) float64 {
+	n := len(z)
+	zv := mat.NewVecDense(n, append([]float64(nil), z...))
+	return 0.5*mat.Inner(zv, qp.H, zv) + mat.Dot(mat.NewVecDense(n, append([]float64(nil), qp.G...)), zv)
+}
+
+// TestQPAgainstBruteForce compares the optimum with the enumeration
+// reference on problems with n ≤ 4. The objective must agree to 1e-9
+// relative and z to 1e-7: both sides solve the same small linear systems,
+// one by rotations and one by LU, to about 1e-12; z is less well
+// determined than the objective when H is poorly conditioned.
+func TestQPAgainstBruteForce(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 1))
+	for trial := range 60 {
+		n := 1 + trial%4
+		m := rng.IntN(4)
+		qp := randomQP(rng, n, m)
+		want, wantObj := bruteForceQP(qp, n)
+		if want == nil {
+			t.Fatalf("trial %d: the reference found no feasible point of a feasible problem", trial)
+		}
+		s := NewQPSolver(n, m, QPSettings{})
+		z := make([]float64, n)
+		res, err := s.Solve(z, qp, false)
+		if err != nil {
+			t.Fatalf("trial %d n=%d m=%d: %v", trial, n, m, err)
+		}
+		if math.Abs(res.Objective-wantObj) > 1e-9*(1+math.Abs(wantObj)) {
+			t.Errorf("trial %d n=%d m=%d: objective %.12g, reference %.12g", trial, n, m, res.Objective, wantObj)
+		}
+		for j := range z {
+			if math.Abs(z[j]-want[j]) > 1e-7*(1+math.Abs(want[j])) {
+				t.Errorf("trial %d n=%d m=%d: z[%d] = %.12g, reference %.12g", trial, n, m, j, z[j], want[j])
+			}
+		}
+	}
+}
+
+// TestQPWarmStart solves a sequence of slowly changing QPs (the receding
+// horizon case) warm and cold: the answers must agree (1e-9, the KKT
+// tolerance above with room for the different rotation order) and warm
+// solves must take fewer active-set changes in total.
+func TestQPWarmStart(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 9))
+	for _, nm := range [][2]int{{10, 30}, {48, 200}} {
+		n, m := nm[0], nm[1]
+		var problem plannerLikeQP
+		problem.init(rng, n, m)
+		cold, warm := NewQPSolver(n, m, QPSettings{}), NewQPSolver(n, m, QPSettings{})
+		zc, zw := make([]float64, n), make([]float64, n)
+		coldIt, warmIt, activeSum := 0, 0, 0
+		for tick := range 30 {
+			qp := problem.next(rng)
+			rc, err := cold.Solve(zc, qp, false)
+			if err != nil {
+				t.Fatalf("n=%d tick %d cold: %v", n, tick, err)
+			}
+			rw, err := warm.Solve(zw, qp, tick > 0)
+			if err != nil {
+				t.Fatalf("n=%d tick %d warm: %v", n, tick, err)
+			}
+			for j := range zc {
+				if math.Abs(zc[j]-zw[j]) > 1e-9*(1+math.Abs(zc[j])) {
+					t.Fatalf("n=%d tick %d: warm z[%d] = %.14g, cold %.14g", n, tick, j, zw[j], zc[j])
+				}
+			}
+			if tick > 0 {
+				coldIt += rc.Iterations
+				warmIt += rw.Iterations
+			}
+			for _, sd := range rc.RowSide {
+				if sd != QPInactive {
+					activeSum++
+				}
+			}
+		}
+		if activeSum == 0 {
+			t.Fatalf("n=%d: nothing active; the warm start was not exercised", n)
+		}
+		if warmIt >= coldIt {
+			t.Errorf("n=%d: warm solves took %d active-set changes, cold %d; want fewer", n, warmIt, coldIt)
+		}
+		t.Logf("n=%d m=%d: active-set changes over 29 ticks: cold %d, warm %d; active rows %d", n, m, coldIt, warmIt, activeSum)
+	}
+}
+
+func TestQPInfeasible(t *testing.T) {
+	h := mat.NewSymDense(2, []float64{2, 0, 0, 2})
+	cases := []struct {
+		name string
+		qp   *QP
+		m    int
+	}{
+		{"rows contradict", &QP{H: h, G: []float64{0, 0}, C: mat.NewDense(2, 2, []float64{1, 1, 1, 1}),
+			Lo: []float64{1, math.Inf(-1)}, Hi: []float64{math.Inf(1), 0}}, 2},
+		{"row against bounds", &QP{H: h, G: []float64{1, -1}, C: mat.NewDense(1, 2, []float64{1, 2}),
+			Lo: []float64{10}, Hi: []float64{math.Inf(1)}, LB: []float64{0, 0}, UB: []float64{1, 1}}, 1},
+		{"equalities contradict", &QP{H: h, G: []float64{0, 0}, C: mat.NewDense(3, 2, []float64{1, 0, 0, 1, 1, 1}),
+			Lo: []float64{1, 1, 3}, Hi: []float64{1, 1, 3}}, 3},
+		{"lower above upper", &QP{H: h, G: []float64{0, 0}, LB: []float64{1, 0}, UB: []float64{0, 1}}, 0},
+	}
+	for _, c := range cases {
+		s := NewQPSolver(2, c.m, QPSettings{})
+		_, err := s.Solve(make([]float64, 2), c.qp, false)
+		if !errors.Is(err, ErrQPInfeasible) {
+			t.Errorf("%s: error %v, want ErrQPInfeasible", c.name, err)
+		}
+	}
+}
+
+func TestQPRejectsNonConvexAndNaN(t *testing.T) {
+	s := NewQPSolver(2, 0, QPSettings{})
+	z := make([]float64, 2)
+	_, err := s.Solve(z, &QP{H: mat.NewSymDense(2, []float64{1, 2, 2, 1}), G: []float64{0, 0}}, false)
+	if !errors.Is(err, ErrQPNotConvex) {
+		t.Errorf("indefinite H: error %v, want ErrQPNotConvex", err)
+	}
+	_, err = s.Solve(z, &QP{H: mat.NewSymDense(2, []float64{1, 0, 0, 1}), G: []float64{math.NaN(), 0}}, false)
+	if !errors.Is(err, ErrQPNotFinite) {
+		t.Errorf("NaN in g: error %v, want ErrQPNotFinite", err)
+	}
+}
+
+func TestQPIterationLimit(t *testing.T) {
+	rng := rand.New(rand.NewPCG(8, 8))
+	qp := randomQP(rng, 20, 60)
+	s := NewQPSolver(20, 60, QPSettings{MaxIterations: 2})
+	_, err := s.Solve(make([]float64, 20), qp, false)
+	if !errors.Is(err, ErrQPIterationLimit) {
+		t.Errorf("error %v, want ErrQPIterationLimit", err)
+	}
+}
+
+func TestQPAllocatesNothing(t *testing.T) {
+	rng := rand.New(rand.NewPCG(2, 2))
+	var problem plannerLikeQP
+	problem.init(rng, 48, 200)
+	s := NewQPSolver(48, 200, QPSettings{})
+	z := make([]float64, 48)
+	qp := problem.next(rng)
+	if _, err := s.Solve(z, qp, false); err != nil {
+		t.Fatal(err)
+	}
+	for _, warm := range []bool{false, true} {
+		allocs := testing.AllocsPerRun(20, func() {
+			if _, err := s.Solve(z, qp, warm); err != nil {
+				t.Fatal(err)
+			}
+		})
+		if allocs != 0 {
+			t.Errorf("warm=%v: %v allocations per solve, want 0", warm, allocs)
+		}
+	}
+}
+
+// plannerLikeQP imitates the planner's step QP (DESIGN §4.3): 12 joints, the
+// correction on 4 knots per joint (n = 48) interpolated linearly onto 8
+// steps; H = JᵀJ from random marker sensitivities plus nominal and smoothness
+// weights; rows bound the steps' velocity and acceleration (m = 192 for
+// n = 48); bounds limit the deviation from the nominal. The gradient drifts
+// slowly from tick to tick like a receding horizon's. Invented numbers.
+type plannerLikeQP struct {
+	qp    QP
+	gBase []float64
+	drift []float64
+}
+
+func (p *plannerLikeQP) init(rng *rand.Rand, n, m int) {
+	const residuals = 120
+	sens := mat.NewDense(residuals, n, nil)
+	for i := range residuals {
+		for j := range n {
+			sens.Set(i, j, rng.NormFloat64())
+		}
+	}
+	h := mat.NewSymDense(n, nil)
+	h.SymOuterK(1, sens.T())
+	for i := range n {
+		h.SetSym(i, i, h.At(i, i)+1)
+	}
+	c := mat.NewDense(m, n, nil)
+	lo, hi := make([]float64, m), make([]float64, m)
+	// Rows: differences of neighbouring variables (velocity-like) and
+	// second differences (acceleration-like), wrapping over the variables,
+	// with one-sided or two-sided limits.
+	for i := range m {
+		a := i % n
+		b := (a + 1) % n
+		if i/n%2 == 0 {
+			c.Set(i, a, -1)
+			c.Set(i, b, 1)
+		} else {
+			cc := (a + 2) % n
+			c.Set(i, a, 1)
+			c.Set(i, b, -2)
+			c.Set(i, cc, 1)
+		}
+		lo[i], hi[i] = -0.5-rng.Float64(), 0.5+rng.Float64()
+		if i%7 == 0 {
+			lo[i] = math.Inf(-1)
+		}
+	}
+	lb, ub := make([]float64, n), make([]float64, n)
+	for j := range n {
+		lb[j], ub[j] = -1, 1
+	}
+	p.gBase = make([]float64, n)
+	p.drift = make([]float64, n)
+	for j := range n {
+		p.gBase[j] = 15 * rng.NormFloat64()
+		p.drift[j] = 0.3 * rng.NormFloat64()
+	}
+	p.qp = QP{H: h, G: make([]float64, n), C: c, Lo: lo, Hi: hi, LB: lb, UB: ub}
+}
+
+// next moves the gradient one tick along its drift and returns the QP.
+func (p *plannerLikeQP) next(rng *rand.Rand) *QP {
+	for j := range p.gBase {
+		p.gBase[j] += p.drift[j] + 0.05*rng.NormFloat64()
+		p.qp.G[j] = p.gBase[j]
+	}
+	return &p.qp
+}
+
+// benchmarkQP solves a fixed cycle of 16 drifting planner-like problems.
+func benchmarkQP(b *testing.B, n, m int, warm, factorized bool) {
+	rng := rand.New(rand.NewPCG(11, 13))
+	var problem plannerLikeQP
+	problem.init(rng, n, m)
+	gs := make([][]float64, 16)
+	for k := range gs {
+		gs[k] = append([]float64(nil), problem.next(rng).G...)
+	}
+	qp := &problem.qp
+	s := NewQPSolver(n, m, QPSettings{})
+	z := make([]float64, n)
+	if err := s.Factorize(qp.H); err != nil {
+		b.Fatal(err)
+	}
+	iterations, active := 0, 0
+	b.ReportAllocs()
+	k := 0
+	for b.Loop() {
+		copy(qp.G, gs[k%len(gs)])
+		k++
+		var res QPResult
+		var err error
+		if factorized {
+			res, err = s.SolveFactorized(z, qp, warm)
+		} else {
+			res, err = s.Solve(z, qp, warm)
+		}
+		if err != nil {
+			b.Fatal(err)
+		}
+		iterations += res.Iterations
+		for _, sd := range res.RowSide {
+			if sd != QPInactive {
+				active++
+			}
+		}
+		for _, sd := range res.BoundSide {
+			if sd != QPInactive {
+				active++
+			}
+		}
+	}
+	b.ReportMetric(float64(iterations)/float64(k), "changes/op")
+	b.ReportMetric(float64(active)/float64(k), "active/op")
+}
+
+func BenchmarkQPCold48x192(b *testing.B)           { benchmarkQP(b, 48, 192, false, false) }
+func BenchmarkQPWarm48x192(b *testing.B)           { benchmarkQP(b, 48, 192, true, false) }
+func BenchmarkQPWarmFactorized48x192(b *testing.B) { benchmarkQP(b, 48, 192, true, true) }
+func BenchmarkQPCold120x400(b *testing.B)          { benchmarkQP(b, 120, 400, false, false) }
+func BenchmarkQPWarm120x400(b *testing.B)          { benchmarkQP(b, 120, 400, true, false) }
+
