@@ -567,4 +567,3 @@ func BenchmarkQPWarm48x192(b *testing.B)           { benchmarkQP(b, 48, 192, tru
 func BenchmarkQPWarmFactorized48x192(b *testing.B) { benchmarkQP(b, 48, 192, true, true) }
 func BenchmarkQPCold120x400(b *testing.B)          { benchmarkQP(b, 120, 400, false, false) }
 func BenchmarkQPWarm120x400(b *testing.B)          { benchmarkQP(b, 120, 400, true, false) }
-
