@@ -30,7 +30,8 @@ type QPSettings struct {
 	// per solve. Zero means 5·(n+m) + 50.
 	MaxIterations int
 	// FeasibilityTol: a constraint counts as violated when it is violated by
-	// more than FeasibilityTol·(1 + |bound| + Σⱼ|cᵢⱼ zⱼ|). Zero means 1e-11.
+	// more than FeasibilityTol·(1 + |bound| + Σⱼ|cᵢⱼ|·maxⱼ|zⱼ|). Zero means
+	// 1e-11.
 	FeasibilityTol float64
 }
 
@@ -106,8 +107,9 @@ type QPSolver struct {
 	q      int
 
 	d, zs, rdir []float64
-	rowNorm     []float64
-	rowSide     []QPSide // current active set (by row)
+	rowNorm     []float64 // Euclidean norm of each row of C
+	rowAbs      []float64 // 1-norm of each row of C
+	rowSide     []QPSide  // current active set (by row)
 	boundSide   []QPSide
 	warmRow     []QPSide // warm-start active set
 	warmBound   []QPSide
@@ -132,6 +134,7 @@ func NewQPSolver(n, m int, s QPSettings) *QPSolver {
 		zs:        make([]float64, n),
 		rdir:      make([]float64, n+1),
 		rowNorm:   make([]float64, m),
+		rowAbs:    make([]float64, m),
 		rowSide:   make([]QPSide, m),
 		boundSide: make([]QPSide, n),
 		warmRow:   make([]QPSide, m),
@@ -306,14 +309,19 @@ func (s *QPSolver) checkData(qp *QP) error {
 		raw := qp.C.RawMatrix()
 		for i := range s.m {
 			row := raw.Data[i*raw.Stride : i*raw.Stride+s.n]
-			sum := 0.0
+			sum, abs := 0.0, 0.0
 			for _, v := range row {
 				sum += v * v
+				abs += math.Abs(v)
 			}
 			if math.IsNaN(sum) || math.IsInf(sum, 0) {
 				return ErrQPNotFinite
 			}
 			s.rowNorm[i] = math.Sqrt(sum)
+			s.rowAbs[i] = abs
+			if sum == 0 && (qp.Lo[i] > 0 || qp.Hi[i] < 0) {
+				return ErrQPInfeasible // 0 = Cᵢz outside [Lo, Hi]
+			}
 		}
 	}
 	if qp.LB != nil && qp.UB != nil {
@@ -635,23 +643,20 @@ func (s *QPSolver) mostViolated(z []float64, qp *QP) (int32, error) {
 		}
 	}
 	if s.m > 0 {
+		zmax := 0.0
+		for _, v := range z {
+			zmax = math.Max(zmax, math.Abs(v))
+		}
 		raw := qp.C.RawMatrix()
 		for i := range s.m {
-			if s.rowSide[i] != QPInactive {
+			if s.rowSide[i] != QPInactive || s.rowNorm[i] == 0 {
 				continue
 			}
-			row := raw.Data[i*raw.Stride : i*raw.Stride+s.n]
-			t, scale := 0.0, 0.0
-			for k, c := range row {
-				t += c * z[k]
-				scale += math.Abs(c * z[k])
-			}
+			t := qpDot(raw.Data[i*raw.Stride:i*raw.Stride+s.n], z)
 			if math.IsNaN(t) {
 				return -1, ErrQPNotFinite
 			}
-			if s.rowNorm[i] > 0 {
-				consider(i, t, scale, qp.Lo[i], qp.Hi[i], s.rowNorm[i])
-			}
+			consider(i, t, s.rowAbs[i]*zmax, qp.Lo[i], qp.Hi[i], s.rowNorm[i])
 		}
 	}
 	if qp.LB != nil || qp.UB != nil {

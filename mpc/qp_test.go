@@ -390,6 +390,8 @@ func TestQPInfeasible(t *testing.T) {
 			Lo: []float64{10}, Hi: []float64{math.Inf(1)}, LB: []float64{0, 0}, UB: []float64{1, 1}}, 1},
 		{"equalities contradict", &QP{H: h, G: []float64{0, 0}, C: mat.NewDense(3, 2, []float64{1, 0, 0, 1, 1, 1}),
 			Lo: []float64{1, 1, 3}, Hi: []float64{1, 1, 3}}, 3},
+		{"zero row outside its limits", &QP{H: h, G: []float64{0, 0}, C: mat.NewDense(1, 2, []float64{0, 0}),
+			Lo: []float64{0.5}, Hi: []float64{1}}, 1},
 		{"lower above upper", &QP{H: h, G: []float64{0, 0}, LB: []float64{1, 0}, UB: []float64{0, 1}}, 0},
 	}
 	for _, c := range cases {
@@ -567,3 +569,99 @@ func BenchmarkQPWarm48x192(b *testing.B)           { benchmarkQP(b, 48, 192, tru
 func BenchmarkQPWarmFactorized48x192(b *testing.B) { benchmarkQP(b, 48, 192, true, true) }
 func BenchmarkQPCold120x400(b *testing.B)          { benchmarkQP(b, 120, 400, false, false) }
 func BenchmarkQPWarm120x400(b *testing.B)          { benchmarkQP(b, 120, 400, true, false) }
+
+// degenerateQP adds to a random QP the awkward cases an active-set method
+// must survive: a duplicated row, a row that repeats a bound, a consistent
+// but linearly dependent equality (twice another equality row), and a zero
+// row with 0 inside its limits.
+func degenerateQP(rng *rand.Rand, n, m int) *QP {
+	base := randomQP(rng, n, m)
+	extra := 4
+	c := mat.NewDense(m+extra, n, nil)
+	c.Slice(0, m, 0, n).(*mat.Dense).Copy(base.C)
+	lo := append(append([]float64(nil), base.Lo...), make([]float64, extra)...)
+	hi := append(append([]float64(nil), base.Hi...), make([]float64, extra)...)
+	// Row m: duplicate of row 0.
+	c.SetRow(m, mat.Row(nil, 0, base.C))
+	lo[m], hi[m] = base.Lo[0], base.Hi[0]
+	// Row m+1: the bound on z₀ again.
+	c.Set(m+1, 0, 1)
+	lo[m+1], hi[m+1] = base.LB[0], base.UB[0]
+	// Row m+2: twice the first equality row, or twice row 1 as a plain row.
+	src := 1
+	for i := range m {
+		if base.Lo[i] == base.Hi[i] {
+			src = i
+			break
+		}
+	}
+	row := mat.Row(nil, src, base.C)
+	for j := range row {
+		row[j] *= 2
+	}
+	c.SetRow(m+2, row)
+	lo[m+2], hi[m+2] = 2*base.Lo[src], 2*base.Hi[src]
+	// Row m+3: zero.
+	lo[m+3], hi[m+3] = -1, 1
+	base.C, base.Lo, base.Hi = c, lo, hi
+	return base
+}
+
+// TestQPDegenerate: the KKT conditions (Nocedal & Wright, Theorem 12.1) to
+// 1e-8 on problems with dependent and duplicated constraints.
+func TestQPDegenerate(t *testing.T) {
+	rng := rand.New(rand.NewPCG(21, 4))
+	for trial := range 40 {
+		n, m := 3+trial%10, 4+trial%20
+		qp := degenerateQP(rng, n, m)
+		s := NewQPSolver(n, m+4, QPSettings{})
+		z := make([]float64, n)
+		res, err := s.Solve(z, qp, false)
+		if err != nil {
+			t.Fatalf("trial %d: %v", trial, err)
+		}
+		stat, primal, dual, compl := kktResidual(qp, z, res.RowMult, res.BoundMult)
+		if !(stat <= 1e-8 && primal <= 1e-8 && dual <= 1e-8 && compl <= 1e-8) {
+			t.Errorf("trial %d n=%d m=%d: KKT residuals %.2g %.2g %.2g %.2g", trial, n, m, stat, primal, dual, compl)
+		}
+		// Warm from its own solution: the same point, no active-set change.
+		z2 := make([]float64, n)
+		res2, err := s.Solve(z2, qp, true)
+		if err != nil {
+			t.Fatalf("trial %d warm: %v", trial, err)
+		}
+		for j := range z {
+			if math.Abs(z[j]-z2[j]) > 1e-9*(1+math.Abs(z[j])) {
+				t.Fatalf("trial %d: warm restart moved z[%d] from %v to %v", trial, j, z[j], z2[j])
+			}
+		}
+		if res2.Iterations != 0 {
+			t.Errorf("trial %d: warm restart at the solution took %d changes, want 0", trial, res2.Iterations)
+		}
+	}
+}
+
+// TestQPSolveFactorizedMatchesSolve: the split used by the planner's
+// prepare and feedback phases gives the same bits as Solve.
+func TestQPSolveFactorizedMatchesSolve(t *testing.T) {
+	rng := rand.New(rand.NewPCG(6, 6))
+	qp := randomQP(rng, 12, 30)
+	a, b := NewQPSolver(12, 30, QPSettings{}), NewQPSolver(12, 30, QPSettings{})
+	za, zb := make([]float64, 12), make([]float64, 12)
+	if _, err := a.Solve(za, qp, false); err != nil {
+		t.Fatal(err)
+	}
+	if err := b.Factorize(qp.H); err != nil {
+		t.Fatal(err)
+	}
+	for range 2 { // twice: the second must not be disturbed by the first
+		if _, err := b.SolveFactorized(zb, qp, false); err != nil {
+			t.Fatal(err)
+		}
+		for j := range za {
+			if za[j] != zb[j] {
+				t.Fatalf("z[%d]: Solve %v, SolveFactorized %v", j, za[j], zb[j])
+			}
+		}
+	}
+}
