@@ -102,7 +102,6 @@ type Planner struct {
 	lz linearisation
 	qp qpData
 	fb feedbackData
-	sv solverData
 }
 
 // plannerState is the solution carried from tick to tick.

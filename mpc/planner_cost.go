@@ -158,8 +158,8 @@ func (p *Planner) figureResiduals() {
 
 // linearise computes the sensitivities of the last rollout (evaluate must
 // have run at c) to the knots and forms the Gauss-Newton Hessian and
-// gradient.
-func (p *Planner) linearise() {
+// gradient, and factorises the Hessian for the QP.
+func (p *Planner) linearise() error {
 	nq, n, lz, st := p.nq, p.steps, &p.lz, &p.st
 	for k := 1; k <= n; k++ {
 		dA := lz.dA[k-1]
@@ -187,6 +187,7 @@ func (p *Planner) linearise() {
 	copy(h.Data, lz.hLin.RawMatrix().Data)
 	blas64.Gemm(blas.Trans, blas.NoTrans, 1, jf, jf, 1, h)
 	p.gradient()
+	return p.factorizeQP()
 }
 
 // gradient sets g = jfigᵀ rfig + linᵀ rlin.

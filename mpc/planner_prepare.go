@@ -49,7 +49,9 @@ func (p *Planner) Prepare(tS float64, qCmd, qCmdPrev, xPred, xPredPrev []float64
 		return err
 	}
 	rep.PrepareCostBefore = p.lz.cost
-	p.linearise()
+	if err := p.linearise(); err != nil {
+		return err
+	}
 	p.setQPBounds()
 
 	for rep.Iterations+1 < p.set.MaxIterations {
@@ -73,7 +75,9 @@ func (p *Planner) Prepare(tS float64, qCmd, qCmdPrev, xPred, xPredPrev []float64
 			break
 		}
 		rep.Iterations++
-		p.linearise()
+		if err := p.linearise(); err != nil {
+			return err
+		}
 		p.setQPBounds()
 	}
 	rep.PrepareCostAfter = p.lz.cost
@@ -129,7 +133,6 @@ func (p *Planner) loadTick(tS float64, qCmd, qCmdPrev, xPred, xPredPrev []float6
 	p.backState(st.xm1, xPred, xPredPrev)
 	p.fillLinearConstants()
 	p.selectConstraints()
-	p.buildQPMatrix()
 }
 
 // backState writes x(t−h_p) from x(t) and x(t−Δt) by constant velocity.

@@ -14,10 +14,15 @@ import (
 // selectConstraints); the bounds are relative to the current knots and
 // relaxed to include dc = 0 where the current knots already break one.
 type qpData struct {
-	cons   constraintSet
-	cFull  *mat.Dense // every candidate row could be a QP row: len(cand) × nc
-	lo, hi []float64  // per QP row
-	lb, ub []float64  // per knot
+	cons       constraintSet
+	cFull      *mat.Dense // one row per candidate, constant
+	lo, hi     []float64  // per candidate; ±Inf for those that cannot act this tick
+	lb, ub     []float64  // per knot
+	hSym       *mat.SymDense
+	solver     *QPSolver
+	prob       QP
+	warm       bool // the solver holds an active set to start from
+	lastActive int  // active constraints of the last solve
 }
 
 func (p *Planner) allocateQP() {
@@ -29,18 +34,21 @@ func (p *Planner) allocateQP() {
 	q.hi = make([]float64, nr)
 	q.lb = make([]float64, p.nc)
 	q.ub = make([]float64, p.nc)
-	p.allocateSolver()
+	q.hSym = mat.NewSymDense(p.nc, nil)
+	q.solver = NewQPSolver(p.nc, nr, QPSettings{})
+	q.prob = QP{H: q.hSym, G: p.lz.g, LB: q.lb, UB: q.ub}
+	if nr > 0 {
+		q.prob.C, q.prob.Lo, q.prob.Hi = q.cFull, q.lo, q.hi
+	}
+	p.buildQPMatrix()
 }
 
-// buildQPMatrix writes this tick's QP rows into the top of cFull.
+// buildQPMatrix writes every candidate's row into cFull.
 func (p *Planner) buildQPMatrix() {
 	q := &p.qp
 	raw := q.cFull.RawMatrix()
-	for row, r := range q.cons.rows {
-		dst := raw.Data[row*raw.Stride : row*raw.Stride+p.nc]
-		for i := range dst {
-			dst[i] = 0
-		}
+	for r := range q.cons.cand {
+		dst := raw.Data[r*raw.Stride : r*raw.Stride+p.nc]
 		cd := &q.cons.cand[r]
 		coef := q.cons.coef[r*p.knots : (r+1)*p.knots]
 		for j, w := range coef {
@@ -52,11 +60,14 @@ func (p *Planner) buildQPMatrix() {
 // setQPBounds writes the row and box bounds relative to the current knots.
 func (p *Planner) setQPBounds() {
 	q, st := &p.qp, &p.st
-	for row, r := range q.cons.rows {
+	for r := range q.lo {
+		q.lo[r], q.hi[r] = math.Inf(-1), math.Inf(1)
+	}
+	for _, r := range q.cons.rows {
 		cd := &q.cons.cand[r]
 		v := p.candidateValue(r, st.c)
-		q.lo[row] = math.Min(cd.lo-v, 0)
-		q.hi[row] = math.Max(cd.hi-v, 0)
+		q.lo[r] = math.Min(cd.lo-v, 0)
+		q.hi[r] = math.Max(cd.hi-v, 0)
 	}
 	dm := p.set.MaxDeviation
 	for i, c := range st.c {
