@@ -243,3 +243,54 @@ func TestURDFReportsEveryProblem(t *testing.T) {
 		t.Errorf("problems at lines %d and %d, want 3 and 4", errs[0].Line, errs[1].Line)
 	}
 }
+
+// FuzzParseURDF: any input either parses into a consistent tree or fails
+// with positioned errors; nothing panics. `go test` runs the seeds (every
+// test URDF); `go test -fuzz FuzzParseURDF ./sim` explores further.
+func FuzzParseURDF(f *testing.F) {
+	names, err := filepath.Glob(filepath.Join("testdata", "urdf", "*.urdf"))
+	if err != nil {
+		f.Fatal(err)
+	}
+	for _, n := range append(names, demoArmPath) {
+		f.Add(readTestFile(f, n))
+	}
+	f.Fuzz(func(t *testing.T, data []byte) {
+		u, err := ParseURDF("fuzz.urdf", data)
+		if err != nil {
+			var errs FileErrors
+			if !errors.As(err, &errs) || len(errs) == 0 {
+				t.Fatalf("error %v is not a non-empty FileErrors", err)
+			}
+			for _, e := range errs {
+				if e.File != "fuzz.urdf" || e.Line < 1 || e.Msg == "" {
+					t.Fatalf("badly positioned error %#v", e)
+				}
+			}
+			return
+		}
+		links := map[string]bool{}
+		for _, l := range u.Links {
+			links[l.Name] = true
+		}
+		for _, j := range u.Joints {
+			if !links[j.Parent] || !links[j.Child] {
+				t.Fatalf("joint %s connects unknown links", j.Name)
+			}
+			if n := math.Sqrt(j.Axis[0]*j.Axis[0] + j.Axis[1]*j.Axis[1] + j.Axis[2]*j.Axis[2]); math.Abs(n-1) > 1e-12 {
+				t.Fatalf("joint %s axis %v is not unit", j.Name, j.Axis)
+			}
+			if (j.Kind == Revolute || j.Kind == Prismatic) && !(j.Lower < j.Upper && j.VelocityLimit > 0) {
+				t.Fatalf("joint %s has limits [%v, %v], velocity %v", j.Name, j.Lower, j.Upper, j.VelocityLimit)
+			}
+		}
+		// Every link's chain from the root either works or fails cleanly.
+		root := u.Links[0].Name
+		for _, l := range u.Links {
+			if c, err := u.Chain(root, l.Name); err == nil {
+				ws := c.NewWorkspace()
+				c.Forward(ws, Identity(), make([]float64, c.NumJoints()))
+			}
+		}
+	})
+}
