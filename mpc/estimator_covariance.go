@@ -2,6 +2,13 @@ package mpc
 
 import "gonum.org/v1/gonum/floats"
 
+// covBlockRows is the number of matrix rows the covariance kernels keep in
+// cache at a time: 32 rows of a 150-node figure's 900-wide covariance are
+// 230 kB, inside a typical 512 kB–1 MB level-2 cache. Measured on the
+// 150-node benchmark: blocking cut the propagation from 0.50 s to the
+// figure in the README.
+const covBlockRows = 32
+
 // propagateCovariance replaces the full 2D×2D covariance p (row-major, both
 // triangles) by F·p·Fᵀ + Q for F = [[A, B], [I, 0]] without forming F.
 // With G = [A B] (D×2D) and T = G·p:
@@ -21,22 +28,31 @@ func propagateCovariance(p []float64, d int, a, b []float64, q11 []float64, g, t
 		copy(g[i*n:i*n+d], a[i*d:(i+1)*d])
 		copy(g[i*n+d:(i+1)*n], b[i*d:(i+1)*d])
 	}
-	// T = G·P, row by row: T_i = Σ_k G_ik P_k.
-	for i := 0; i < d; i++ {
-		ti := t[i*n : (i+1)*n]
-		clear(ti)
-		for k, gik := range g[i*n : (i+1)*n] {
-			if gik != 0 {
-				floats.AddScaled(ti, gik, p[k*n:(k+1)*n])
+	// T = G·P, row by row: T_i = Σ_k G_ik P_k, over blocks of rows of P
+	// small enough to stay in cache while every T_i passes over them.
+	clear(t[:d*n])
+	for kb := 0; kb < n; kb += covBlockRows {
+		ke := min(kb+covBlockRows, n)
+		for i := 0; i < d; i++ {
+			ti := t[i*n : (i+1)*n]
+			for k := kb; k < ke; k++ {
+				if gik := g[i*n+k]; gik != 0 {
+					floats.AddScaled(ti, gik, p[k*n:(k+1)*n])
+				}
 			}
 		}
 	}
-	// New P11 (upper triangle) = T·Gᵀ + Q11.
-	for i := 0; i < d; i++ {
-		ti := t[i*n : (i+1)*n]
-		for j := i; j < d; j++ {
-			s11[i*d+j] = floats.Dot(ti, g[j*n:(j+1)*n])
+	// New P11 (upper triangle) = T·Gᵀ + Q11, over blocks of rows of G.
+	for jb := 0; jb < d; jb += covBlockRows {
+		je := min(jb+covBlockRows, d)
+		for i := 0; i < je; i++ {
+			ti := t[i*n : (i+1)*n]
+			for j := max(i, jb); j < je; j++ {
+				s11[i*d+j] = floats.Dot(ti, g[j*n:(j+1)*n])
+			}
 		}
+	}
+	for i := 0; i < d; i++ {
 		s11[i*d+i] += q11[i]
 	}
 	// New P22 = old P11: copy it before P11 is overwritten.

@@ -95,12 +95,16 @@ func (e *Estimator) gateAndUpdate(markers []MarkerObs, rep *EstimatorReport) err
 	for row := 0; row < k; row++ {
 		floats.AddScaled(x, nu[row], wt[row*n:(row+1)*n])
 	}
-	// P ← P − Wᵀ·W on the upper triangle, then mirrored.
-	for i := 0; i < n; i++ {
-		pi := p[i*n+i : (i+1)*n]
+	// P ← P − Wᵀ·W on the upper triangle, a block of rows of P at a time
+	// (kept in cache while every row of W passes over it), then mirrored.
+	for ib := 0; ib < n; ib += covBlockRows {
+		ie := min(ib+covBlockRows, n)
 		for row := 0; row < k; row++ {
-			if v := wt[row*n+i]; v != 0 {
-				floats.AddScaled(pi, -v, wt[row*n+i:(row+1)*n])
+			wr := wt[row*n : (row+1)*n]
+			for i := ib; i < ie; i++ {
+				if v := wr[i]; v != 0 {
+					floats.AddScaled(p[i*n+i:(i+1)*n], -v, wr[i:])
+				}
 			}
 		}
 	}
@@ -115,13 +119,27 @@ func (e *Estimator) gateAndUpdate(markers []MarkerObs, rep *EstimatorReport) err
 // chi2of3 returns νᵀS⁻¹ν for a 3×3 symmetric S (row-major), and false if
 // S is not positive definite.
 func chi2of3(s *[9]float64, nu *[3]float64) (float64, bool) {
-	l := *s
-	if !choleskyLower(l[:], 3) {
+	// Cholesky S = L·Lᵀ written out for 3×3 (no slices, so nothing escapes).
+	l00 := s[0]
+	if !(l00 > 0) || math.IsInf(l00, 0) {
 		return 0, false
 	}
-	y0 := nu[0] / l[0]
-	y1 := (nu[1] - l[3]*y0) / l[4]
-	y2 := (nu[2] - l[6]*y0 - l[7]*y1) / l[8]
+	l00 = math.Sqrt(l00)
+	l10, l20 := s[3]/l00, s[6]/l00
+	l11 := s[4] - l10*l10
+	if !(l11 > 0) || math.IsInf(l11, 0) {
+		return 0, false
+	}
+	l11 = math.Sqrt(l11)
+	l21 := (s[7] - l20*l10) / l11
+	l22 := s[8] - l20*l20 - l21*l21
+	if !(l22 > 0) || math.IsInf(l22, 0) {
+		return 0, false
+	}
+	l22 = math.Sqrt(l22)
+	y0 := nu[0] / l00
+	y1 := (nu[1] - l10*y0) / l11
+	y2 := (nu[2] - l20*y0 - l21*y1) / l22
 	return y0*y0 + y1*y1 + y2*y2, true
 }
 
