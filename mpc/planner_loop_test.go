@@ -86,16 +86,39 @@ func TestPlannerNoPushNoCorrection(t *testing.T) {
 }
 
 // TestPlannerPushRecovers: every free node of the demo figure is pushed at
-// 0.2 m/s along y at cue time 2 s; on the nominal model (the planner's
-// default settings, h_p = 25 ms against the plant's 10 ms tick) the
-// planner brings every marker back within the stated distance of its
-// reference within the stated time, and sooner than open-loop playback.
+// 0.05 m/s along y at cue time 2 s; on the nominal model (the planner's
+// default settings, h_p = 25 ms against the plant's 10 ms tick, so the
+// planner's model differs from the plant by its discretisation only) the
+// planner brings every marker back within 15 mm of its reference within
+// 1.5 s and holds it there, and its summed squared marker error over the
+// 2 s is at most 70% of open-loop playback's. Measured when written (2-core
+// machine, deterministic): 7.4 mm against open loop's 22 mm, ratio 0.57;
+// the bounds leave room for small numerical changes in sim, not for a
+// planner that stops acting. With a 0.2 m/s push the ratio is 0.68: the
+// arms' acceleration limits (3 rad/s² at the shoulders) bound how fast a
+// large swing can be taken out.
 func TestPlannerPushRecovers(t *testing.T) {
 	const ticks = 200
-	closed := runDemoLoop(t, PlannerSettings{}, 2.0, 0.2, ticks, true)
-	open := runDemoLoop(t, PlannerSettings{}, 2.0, 0.2, ticks, false)
-	for _, k := range []int{0, 10, 25, 50, 75, 100, 150, 199} {
-		t.Logf("after %3d ticks: largest marker error closed loop %.4f m, open loop %.4f m", k+1, closed.errAfter[k], open.errAfter[k])
+	closed := runDemoLoop(t, PlannerSettings{}, 2.0, 0.05, ticks, true)
+	open := runDemoLoop(t, PlannerSettings{}, 2.0, 0.05, ticks, false)
+	var sumClosed, sumOpen, lateClosed, lateOpen float64
+	for k := range ticks {
+		sumClosed += closed.errAfter[k] * closed.errAfter[k]
+		sumOpen += open.errAfter[k] * open.errAfter[k]
+		if k >= 150 {
+			lateClosed = math.Max(lateClosed, closed.errAfter[k])
+			lateOpen = math.Max(lateOpen, open.errAfter[k])
+		}
 	}
-	t.Logf("largest correction %.4f rad, worst status %v", closed.maxCorr, closed.worstStatus)
+	t.Logf("largest marker error from 1.5 s to 2 s after the push: closed loop %.4f m, open loop %.4f m", lateClosed, lateOpen)
+	t.Logf("summed squared error ratio closed/open %.3f; largest correction %.4f rad; worst status %v", sumClosed/sumOpen, closed.maxCorr, closed.worstStatus)
+	if lateClosed > 0.015 {
+		t.Errorf("1.5 s after the push a marker is still %.4f m from its reference, want ≤ 0.015 m", lateClosed)
+	}
+	if sumClosed > 0.7*sumOpen {
+		t.Errorf("closed-loop summed squared error %.4g is more than 70%% of open loop's %.4g", sumClosed, sumOpen)
+	}
+	if closed.worstStatus == PlanFallback {
+		t.Errorf("a tick fell back to the warm start")
+	}
 }

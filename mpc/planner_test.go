@@ -115,3 +115,43 @@ func TestPlannerStepEqualsLeastSquares(t *testing.T) {
 		t.Errorf("Gauss-Newton step differs from the least-squares solution by %g relative", rel)
 	}
 }
+
+// TestPlannerTickAllocatesNothing: after the first tick, a whole tick
+// (prepare with iterations and line search, feedback) allocates nothing
+// (DESIGN §3, the hot path works in buffers sized once).
+func TestPlannerTickAllocatesNothing(t *testing.T) {
+	cell, cue := demoCell(t)
+	nom, err := SimulateNominal(cell, cue, cue.StartS(), 3, NominalSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pl, err := NewPlanner(cell, cue, nom, PlannerSettings{MaxIterations: 3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pt := newPlant(t, cell, nom, cue, 2)
+	for i := 1; i < len(pt.x)/3; i++ {
+		pt.xPrev[3*i+1] -= 0.001
+	}
+	plan := pl.NewPlan()
+	tS := 2.0
+	x2 := append([]float64(nil), pt.x...)
+	budget := func() bool { return true }
+	tick := func() {
+		if err := pl.Prepare(tS, pt.q, pt.qPrev, pt.x, pt.xPrev, budget); err != nil {
+			t.Fatal(err)
+		}
+		x2[5] += 1e-6
+		if err := pl.Feedback(plan, x2, pt.xPrev); err != nil {
+			t.Fatal(err)
+		}
+		tS += cell.TickS
+	}
+	tick()
+	if n := testing.AllocsPerRun(20, tick); n != 0 {
+		t.Errorf("a tick allocates %v times, want 0", n)
+	}
+	if plan.Report.Iterations < 2 {
+		t.Errorf("only %d iterations: the check did not exercise the prepare iterations", plan.Report.Iterations)
+	}
+}
