@@ -4,6 +4,9 @@ import (
 	"errors"
 	"math"
 
+	"gonum.org/v1/gonum/blas"
+	"gonum.org/v1/gonum/blas/blas64"
+	"gonum.org/v1/gonum/lapack/lapack64"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -100,7 +103,6 @@ type QPSolver struct {
 	j0         []float64 // L⁻ᵀ from Factorize, column-major
 	j          []float64 // J, column-major: column k is j[k*n:(k+1)*n]
 	r          []float64 // R, column-major, upper triangular, q×q used
-	hcopy      []float64 // H then L (row-major lower triangle)
 
 	active []int32   // active constraint codes, q of them; code = 2·i + side
 	u      []float64 // multipliers of the active constraints, ≥ 0 except equalities
@@ -109,6 +111,8 @@ type QPSolver struct {
 	d, zs, rdir []float64
 	rowNorm     []float64 // Euclidean norm of each row of C
 	rowAbs      []float64 // 1-norm of each row of C
+	rowNNZ      []int32   // number of non-zeros of each row, or −1 for a dense row
+	rowIdx      []int32   // column indices of the non-zeros, n per row
 	rowSide     []QPSide  // current active set (by row)
 	boundSide   []QPSide
 	warmRow     []QPSide // warm-start active set
@@ -127,7 +131,6 @@ func NewQPSolver(n, m int, s QPSettings) *QPSolver {
 		j:         make([]float64, n*n),
 		j0:        make([]float64, n*n),
 		r:         make([]float64, n*n),
-		hcopy:     make([]float64, n*n),
 		active:    make([]int32, n+1),
 		u:         make([]float64, n+1),
 		d:         make([]float64, n),
@@ -135,6 +138,8 @@ func NewQPSolver(n, m int, s QPSettings) *QPSolver {
 		rdir:      make([]float64, n+1),
 		rowNorm:   make([]float64, m),
 		rowAbs:    make([]float64, m),
+		rowNNZ:    make([]int32, m),
+		rowIdx:    make([]int32, m*n),
 		rowSide:   make([]QPSide, m),
 		boundSide: make([]QPSide, n),
 		warmRow:   make([]QPSide, m),
@@ -184,49 +189,26 @@ func (s *QPSolver) Factorize(h *mat.SymDense) error {
 	}
 	s.factorized = false
 	raw := h.RawSymmetric()
-	a := s.hcopy
-	for i := range n {
-		for k := 0; k <= i; k++ {
-			a[i*n+k] = raw.Data[k*raw.Stride+i] // upper triangle of H → lower of a
-		}
-	}
-	// Cholesky–Banachiewicz, row by row (Golub & Van Loan, Matrix
-	// Computations, §4.2). a becomes L.
-	for i := range n {
-		for k := 0; k <= i; k++ {
-			sum := a[i*n+k]
-			for p := range k {
-				sum -= a[i*n+p] * a[k*n+p]
-			}
-			if k == i {
-				if !(sum > 0) || math.IsInf(sum, 1) {
-					if math.IsNaN(sum) || math.IsInf(sum, 0) {
-						return ErrQPNotFinite
-					}
-					return ErrQPNotConvex
-				}
-				a[i*n+i] = math.Sqrt(sum)
-			} else {
-				a[i*n+k] = sum / a[k*n+k]
-			}
-		}
-	}
-	// J = L⁻ᵀ: column k of J is row k of L⁻¹. Solve L X = I row by row of X
-	// (X lower triangular): X[i][c] = (δᵢc − Σ_{c≤p<i} L[i][p] X[p][c]) / L[i][i].
+	// j0 ← lower triangle of H (row-major), zeros above.
 	jm := s.j0
 	clear(jm)
 	for i := range n {
-		inv := 1 / a[i*n+i]
-		for c := 0; c <= i; c++ {
-			sum := 0.0
-			if c == i {
-				sum = 1
+		for k := 0; k <= i; k++ {
+			v := raw.Data[k*raw.Stride+i]
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return ErrQPNotFinite
 			}
-			for p := c; p < i; p++ {
-				sum -= a[i*n+p] * jm[p*n+c]
-			}
-			jm[i*n+c] = sum * inv
+			jm[i*n+k] = v
 		}
+	}
+	// H = L Lᵀ, then L⁻¹ in place (LAPACK dpotrf and dtrtri through gonum's
+	// native implementation, which allocates nothing). Row k of L⁻¹ is
+	// column k of J = L⁻ᵀ, which is how j0 is laid out.
+	if _, ok := lapack64.Potrf(blas64.Symmetric{N: n, Stride: n, Data: jm, Uplo: blas.Lower}); !ok {
+		return ErrQPNotConvex
+	}
+	if !lapack64.Trtri(blas64.Triangular{N: n, Stride: n, Data: jm, Uplo: blas.Lower, Diag: blas.NonUnit}) {
+		return ErrQPNotConvex
 	}
 	s.factorized = true
 	return nil
@@ -309,10 +291,21 @@ func (s *QPSolver) checkData(qp *QP) error {
 		raw := qp.C.RawMatrix()
 		for i := range s.m {
 			row := raw.Data[i*raw.Stride : i*raw.Stride+s.n]
-			sum, abs := 0.0, 0.0
-			for _, v := range row {
+			idx := s.rowIdx[i*s.n : (i+1)*s.n]
+			sum, abs, nnz := 0.0, 0.0, 0
+			for j, v := range row {
 				sum += v * v
 				abs += math.Abs(v)
+				if v != 0 {
+					idx[nnz] = int32(j)
+					nnz++
+				}
+			}
+			// Rows of difference operators have a few non-zeros; use the
+			// index list when it saves at least half the work.
+			s.rowNNZ[i] = int32(nnz)
+			if 2*nnz > s.n {
+				s.rowNNZ[i] = -1
 			}
 			if math.IsNaN(sum) || math.IsInf(sum, 0) {
 				return ErrQPNotFinite
@@ -384,8 +377,7 @@ func (s *QPSolver) normalDot(qp *QP, code int32, v []float64) float64 {
 	i, upper := int(code>>1), code&1 == 1
 	var t float64
 	if i < s.m {
-		raw := qp.C.RawMatrix()
-		t = qpDot(raw.Data[i*raw.Stride:i*raw.Stride+s.n], v)
+		t = s.rowDot(qp, i, v)
 	} else {
 		t = v[i-s.m]
 	}
@@ -395,6 +387,21 @@ func (s *QPSolver) normalDot(qp *QP, code int32, v []float64) float64 {
 	return t
 }
 
+// rowDot returns Cᵢ·v, using the row's non-zero list when it has one.
+func (s *QPSolver) rowDot(qp *QP, i int, v []float64) float64 {
+	raw := qp.C.RawMatrix()
+	row := raw.Data[i*raw.Stride : i*raw.Stride+s.n]
+	nnz := s.rowNNZ[i]
+	if nnz < 0 {
+		return qpDot(row, v)
+	}
+	sum := 0.0
+	for _, j := range s.rowIdx[i*s.n : i*s.n+int(nnz)] {
+		sum += row[j] * v[j]
+	}
+	return sum
+}
+
 // directions computes d = Jᵀn for constraint code.
 func (s *QPSolver) directions(qp *QP, code int32) {
 	n := s.n
@@ -402,8 +409,20 @@ func (s *QPSolver) directions(qp *QP, code int32) {
 	if i < s.m {
 		raw := qp.C.RawMatrix()
 		row := raw.Data[i*raw.Stride : i*raw.Stride+n]
-		for k := range n {
-			s.d[k] = qpDot(s.j[k*n:(k+1)*n], row)
+		if nnz := s.rowNNZ[i]; nnz >= 0 {
+			idx := s.rowIdx[i*n : i*n+int(nnz)]
+			for k := range n {
+				col := s.j[k*n : (k+1)*n]
+				sum := 0.0
+				for _, j := range idx {
+					sum += row[j] * col[j]
+				}
+				s.d[k] = sum
+			}
+		} else {
+			for k := range n {
+				s.d[k] = qpDot(s.j[k*n:(k+1)*n], row)
+			}
 		}
 	} else {
 		v := i - s.m
@@ -647,12 +666,11 @@ func (s *QPSolver) mostViolated(z []float64, qp *QP) (int32, error) {
 		for _, v := range z {
 			zmax = math.Max(zmax, math.Abs(v))
 		}
-		raw := qp.C.RawMatrix()
 		for i := range s.m {
 			if s.rowSide[i] != QPInactive || s.rowNorm[i] == 0 {
 				continue
 			}
-			t := qpDot(raw.Data[i*raw.Stride:i*raw.Stride+s.n], z)
+			t := s.rowDot(qp, i, z)
 			if math.IsNaN(t) {
 				return -1, ErrQPNotFinite
 			}
