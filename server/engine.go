@@ -75,12 +75,12 @@ type engine struct {
 	budget    mpc.Budget
 
 	// Counters for the status.
-	badInRow, goodInRow               int
-	ticks, rejected, bounded          uint64
-	lastSeq                           uint64
-	lastSolveUs, maxSolveUs           uint32
-	fallbackRun                       int
-	sessionTicks                      uint64
+	badInRow, goodInRow      int
+	ticks, rejected, bounded uint64
+	lastSeq                  uint64
+	lastSolveUs, maxSolveUs  uint32
+	fallbackRun              int
+	sessionTicks             uint64
 }
 
 // armedCue is a session: the armed cue, its planner and its capture.
