@@ -63,6 +63,8 @@ import (
 // grid time (the difference is reported) and requires it to be later than
 // the filter's current grid time; it predicts the filter from its time to the
 // capture time, one step per grid interval, then updates with the markers.
+// An observation more than MaxPredictSteps steps after the filter's time
+// initialises the filter afresh (the report says so), as after Reset.
 //
 // Joints along the way: the joints at a grid time t come from a piecewise
 // linear joint path through these points, in time order: the measured
@@ -124,6 +126,13 @@ const (
 	DefaultStaleAfterTicks = 5
 	// DefaultCommandHistory is how many recorded commands are kept.
 	DefaultCommandHistory = 32
+	// DefaultMaxPredictSteps bounds the process steps one call may take:
+	// an observation further than this from the filter's time
+	// re-initialises the filter, and PredictTo refuses to go further.
+	// 50 steps is half a second at the demo's 10 ms tick: beyond that the
+	// prediction is worth little and its cost (one covariance propagation
+	// per step) would stall the tick.
+	DefaultMaxPredictSteps = 50
 	// MarkerNoiseFloorM is added in quadrature to the marker noise so the
 	// innovation covariance stays positive definite for a noise-free
 	// tracker or a marker on an anchored node (1 nm: far below any tracker).
@@ -141,6 +150,7 @@ type EstimatorSettings struct {
 	GateChi2           float64 // 0 means DefaultGateChi2; +Inf turns gating off
 	StaleAfterTicks    int     // 0 means DefaultStaleAfterTicks
 	CommandHistory     int     // 0 means DefaultCommandHistory
+	MaxPredictSteps    int     // 0 means DefaultMaxPredictSteps
 }
 
 func (s EstimatorSettings) withDefaults() (EstimatorSettings, error) {
@@ -174,8 +184,11 @@ func (s EstimatorSettings) withDefaults() (EstimatorSettings, error) {
 			return s, fmt.Errorf("mpc: estimator settings must be finite (only GateChi2 may be +Inf)")
 		}
 	}
-	if s.StaleAfterTicks < 0 || s.CommandHistory < 0 {
-		return s, fmt.Errorf("mpc: estimator settings StaleAfterTicks and CommandHistory must be non-negative")
+	if s.StaleAfterTicks < 0 || s.CommandHistory < 0 || s.MaxPredictSteps < 0 {
+		return s, fmt.Errorf("mpc: estimator settings StaleAfterTicks, CommandHistory and MaxPredictSteps must be non-negative")
+	}
+	if s.MaxPredictSteps == 0 {
+		s.MaxPredictSteps = DefaultMaxPredictSteps
 	}
 	if s.StaleAfterTicks == 0 {
 		s.StaleAfterTicks = DefaultStaleAfterTicks
@@ -212,7 +225,7 @@ type EstimatorReport struct {
 	GridTimeS           float64          // the grid time the observation was placed at, s
 	CaptureOffsetS      float64          // capture time − grid time, s
 	StepsPredicted      int              // process steps from the previous filter time
-	Initialised         bool             // this observation initialised the filter
+	Initialised         bool             // this observation initialised the filter (the first one, or one after a gap longer than MaxPredictSteps)
 	MarkersSeen         int              // markers in the observation
 	MarkersUsed         int              // markers that passed the gate and updated the state
 	Rejected            []RejectedMarker // markers the gate rejected and the update did not use, in observation order
@@ -227,6 +240,7 @@ var (
 	ErrTimeOrder      = errors.New("mpc: time does not move forward")
 	ErrNotInitialised = errors.New("mpc: estimator has had no observation yet")
 	ErrInnovation     = errors.New("mpc: innovation covariance is not positive definite")
+	ErrPredictTooFar  = errors.New("mpc: prediction too far ahead")
 )
 
 // Estimator is the extended Kalman filter over one figure. It is a value

@@ -299,3 +299,26 @@ func TestPathJointsInterpolatesCommands(t *testing.T) {
 		}
 	}
 }
+
+// TestEstimatorLongGapsAreBounded: an observation more than MaxPredictSteps
+// steps after the filter re-initialises it instead of predicting through
+// the gap, and PredictTo refuses to look further ahead than that.
+func TestEstimatorLongGapsAreBounded(t *testing.T) {
+	est, truth, c, rng := settledDemo(t, 10)
+	xCur, xPrev := make([]float64, est.Dim()), make([]float64, est.Dim())
+	far := est.TimeS() + float64(DefaultMaxPredictSteps+1)*est.StepS()
+	if err := est.PredictTo(xCur, xPrev, far); !errors.Is(err, ErrPredictTooFar) {
+		t.Fatalf("PredictTo %d steps ahead: %v", DefaultMaxPredictSteps+1, err)
+	}
+	if err := est.PredictTo(xCur, xPrev, far-est.StepS()); err != nil {
+		t.Fatalf("PredictTo %d steps ahead: %v", DefaultMaxPredictSteps, err)
+	}
+	obs := truth.observe(nil, demoMarkerNodes(c), c.TrackerToWorld, 1e-3, 0, rng)
+	var rep EstimatorReport
+	if err := est.Observe(far, truth.q, obs, &rep); err != nil {
+		t.Fatal(err)
+	}
+	if !rep.Initialised || rep.StepsPredicted != 0 || est.TimeS() != far {
+		t.Fatalf("after a gap of %d steps: report %+v, time %g", DefaultMaxPredictSteps+1, rep, est.TimeS())
+	}
+}

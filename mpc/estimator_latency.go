@@ -126,8 +126,9 @@ func (e *Estimator) gridIndex(tS float64) int64 {
 // to the filter's grid) into xCur and one step earlier into xPrev: the
 // filtered mean advanced by the process model with the joints of the
 // recorded commands (latency compensation; see the timing model). The
-// filter itself does not change. An apply time before the filter's time is
-// an error, as is a step that fails.
+// filter itself does not change. An apply time before the filter's time or
+// more than MaxPredictSteps steps after it is an error, as is a step that
+// fails.
 func (e *Estimator) PredictTo(xCur, xPrev []float64, applyTimeS float64) error {
 	if !e.init {
 		return ErrNotInitialised
@@ -141,6 +142,10 @@ func (e *Estimator) PredictTo(xCur, xPrev []float64, applyTimeS float64) error {
 	k := e.gridIndex(applyTimeS)
 	if k < e.k {
 		return fmt.Errorf("%w: apply time %g s is before the filter's time %g s", ErrTimeOrder, applyTimeS, e.gridTime(e.k))
+	}
+	if k-e.k > int64(e.set.MaxPredictSteps) {
+		return fmt.Errorf("%w: apply time %g s is %d steps after the filter's time %g s (at most %d)",
+			ErrPredictTooFar, applyTimeS, k-e.k, e.gridTime(e.k), e.set.MaxPredictSteps)
 	}
 	cur, prev, next := e.predCur, e.predPrev, e.predNext
 	copy(cur, e.mean[:e.d])

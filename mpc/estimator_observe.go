@@ -23,17 +23,22 @@ func (e *Estimator) Observe(captureTimeS float64, joints []float64, markers []Ma
 	*rep = EstimatorReport{Rejected: rep.Rejected[:0], MarkersSeen: len(markers)}
 
 	kc := int64(0)
-	if !e.init {
-		if err := e.initialise(joints); err != nil {
-			return err
-		}
-		rep.Initialised = true
-	} else {
+	fresh := !e.init
+	if !fresh {
 		kc = e.gridIndex(captureTimeS)
 		if kc <= e.k {
 			return fmt.Errorf("%w: capture time %g s is not after the previous observation's grid time %g s (step %g s)",
 				ErrTimeOrder, captureTimeS, e.gridTime(e.k), e.h)
 		}
+		fresh = kc-e.k > int64(e.set.MaxPredictSteps)
+	}
+	if fresh {
+		if err := e.initialise(joints); err != nil {
+			return err
+		}
+		rep.Initialised = true
+		kc = 0
+	} else {
 		copy(e.wMean, e.mean)
 		copy(e.wCov, e.cov)
 		if err := e.predict(kc, captureTimeS, joints); err != nil {
@@ -46,8 +51,8 @@ func (e *Estimator) Observe(captureTimeS float64, joints []float64, markers []Ma
 	}
 
 	// Commit.
-	if !e.init {
-		e.t0, e.init = captureTimeS, true
+	if fresh {
+		e.t0, e.init, e.noMarkers = captureTimeS, true, 0
 	}
 	e.k = kc
 	e.mean, e.wMean = e.wMean, e.mean
