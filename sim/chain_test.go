@@ -165,7 +165,7 @@ func TestDemoArmHome(t *testing.T) {
 			t.Errorf("%s: home 0 outside limits [%v, %v]", j.Name, j.Lower, j.Upper)
 		}
 		if j.VelocityLimit < 1.5 || j.VelocityLimit > 3 {
-			t.Errorf("%s: velocity limit %v outside the 1.5–3 rad/s the brief asks for", j.Name, j.VelocityLimit)
+			t.Errorf("%s: velocity limit %v outside 1.5–3 rad/s (our design range for this arm)", j.Name, j.VelocityLimit)
 		}
 	}
 	ws := c.NewWorkspace()
@@ -219,6 +219,14 @@ func TestDemoArmSingleJointMoves(t *testing.T) {
 			}
 			if d := maxAbsDiff3(ws.JointAxis(i), a.w); d > 1e-15 {
 				t.Errorf("j%d axis %v, want %v", i+1, ws.JointAxis(i), a.w)
+			}
+			if d := maxAbsDiff3(ws.JointOrigin(i), a.o); d > 1e-14 {
+				t.Errorf("j%d origin %v, want %v", i+1, ws.JointOrigin(i), a.o)
+			}
+			// The tip is the last joint's moved frame times the fixed offset.
+			tip := ws.JointFrame(5).Mul(c.TipOffset())
+			if d := maxAbsDiff3(ws.Tip().P, tip.P) + maxAbsDiff9(ws.Tip().R, tip.R); d > 1e-15 {
+				t.Errorf("j%d: Tip() differs from JointFrame(5)·TipOffset() by %g", i+1, d)
 			}
 		}
 	}
