@@ -182,10 +182,12 @@ func (p *Planner) linearise() error {
 	}
 	p.roll.Tangent(lz.dX, nil, nil, lz.dA)
 	p.figureJacobian()
+	// H = hLin + jfigᵀjfig, upper triangle only (all the QP reads): Syrk
+	// does half Gemm's work.
 	jf := lz.jfig.RawMatrix()
 	h := lz.h.RawMatrix()
 	copy(h.Data, lz.hLin.RawMatrix().Data)
-	blas64.Gemm(blas.Trans, blas.NoTrans, 1, jf, jf, 1, h)
+	blas64.Syrk(blas.Trans, 1, jf, 1, blas64.Symmetric{N: p.nc, Stride: h.Stride, Data: h.Data, Uplo: blas.Upper})
 	p.gradient()
 	return p.factorizeQP()
 }
