@@ -94,12 +94,17 @@ var (
 // the point is dual feasible; the method then continues as usual. When the
 // active set did not change the solve takes no iterations.
 //
-// All workspace is allocated by NewQPSolver; Solve allocates nothing.
+// Split for a real-time iteration: Factorize(H) and PrepareWarm(qp) need
+// only H and C and may run before the observation; SolveFactorized then
+// does the rest once g (and the bounds) are known.
+//
+// All workspace is allocated by NewQPSolver; nothing allocates afterwards.
 type QPSolver struct {
 	n, m     int
 	settings QPSettings
 
 	factorized bool
+	warmReady  bool      // PrepareWarm has built J, R for the warm set
 	j0         []float64 // L⁻ᵀ from Factorize, column-major
 	j          []float64 // J, column-major: column k is j[k*n:(k+1)*n]
 	r          []float64 // R, column-major, upper triangular, q×q used
@@ -188,6 +193,7 @@ func (s *QPSolver) Factorize(h *mat.SymDense) error {
 		panic("mpc: qp: H has the wrong size")
 	}
 	s.factorized = false
+	s.warmReady = false
 	raw := h.RawSymmetric()
 	// j0 ← lower triangle of H (row-major), zeros above.
 	jm := s.j0
@@ -222,17 +228,35 @@ func (s *QPSolver) SolveFactorized(z []float64, qp *QP, warm bool) (QPResult, er
 	}
 	s.checkShape(z, qp)
 	if err := s.checkData(qp); err != nil {
+		s.warmReady = false
 		return QPResult{}, err
 	}
-	// Every solve starts from J = L⁻ᵀ with no constraint active; a warm
-	// start then rebuilds its active set.
-	copy(s.j, s.j0)
-	s.q = 0
-	clear(s.rowSide)
-	clear(s.boundSide)
+	ready := warm && s.warmReady
+	s.warmReady = false
+	if ready {
+		// PrepareWarm built J and R for the warm set; drop sides that this
+		// QP no longer has and mark the rest for this QP.
+		for k := s.q - 1; k >= 0; k-- {
+			if _, ok := s.constraintBound(qp, s.active[k]); !ok {
+				s.dropActive(k)
+			}
+		}
+		clear(s.rowSide)
+		clear(s.boundSide)
+		for k := range s.q {
+			s.markActive(qp, s.active[k])
+		}
+	} else {
+		// Start from J = L⁻ᵀ with no constraint active; a warm start then
+		// rebuilds its active set.
+		s.resetActive()
+		if warm {
+			s.addWarmSet(qp)
+		}
+	}
 	iterations := 0
 	if warm {
-		it, err := s.warmStart(z, qp)
+		it, err := s.dropNegative(z, qp)
 		iterations += it
 		if err != nil {
 			return s.finish(z, qp, iterations), err
@@ -248,7 +272,7 @@ func (s *QPSolver) SolveFactorized(z []float64, qp *QP, warm bool) (QPResult, er
 
 func (s *QPSolver) checkShape(z []float64, qp *QP) {
 	n, m := s.n, s.m
-	if len(z) != n || len(qp.G) != n {
+	if (z != nil && len(z) != n) || len(qp.G) != n {
 		panic("mpc: qp: z or G has the wrong length")
 	}
 	if m > 0 {
@@ -288,33 +312,8 @@ func (s *QPSolver) checkData(qp *QP) error {
 		if err := check(qp.Lo, qp.Hi); err != nil {
 			return err
 		}
-		raw := qp.C.RawMatrix()
-		for i := range s.m {
-			row := raw.Data[i*raw.Stride : i*raw.Stride+s.n]
-			idx := s.rowIdx[i*s.n : (i+1)*s.n]
-			sum, abs, nnz := 0.0, 0.0, 0
-			for j, v := range row {
-				sum += v * v
-				abs += math.Abs(v)
-				if v != 0 {
-					idx[nnz] = int32(j)
-					nnz++
-				}
-			}
-			// Rows of difference operators have a few non-zeros; use the
-			// index list when it saves at least half the work.
-			s.rowNNZ[i] = int32(nnz)
-			if 2*nnz > s.n {
-				s.rowNNZ[i] = -1
-			}
-			if math.IsNaN(sum) || math.IsInf(sum, 0) {
-				return ErrQPNotFinite
-			}
-			s.rowNorm[i] = math.Sqrt(sum)
-			s.rowAbs[i] = abs
-			if sum == 0 && (qp.Lo[i] > 0 || qp.Hi[i] < 0) {
-				return ErrQPInfeasible // 0 = Cᵢz outside [Lo, Hi]
-			}
+		if err := s.analyseRows(qp); err != nil {
+			return err
 		}
 	}
 	if qp.LB != nil && qp.UB != nil {
@@ -325,6 +324,42 @@ func (s *QPSolver) checkData(qp *QP) error {
 			if math.IsNaN(v) {
 				return ErrQPNotFinite
 			}
+		}
+	}
+	return nil
+}
+
+// analyseRows computes each row's norms and non-zero pattern.
+func (s *QPSolver) analyseRows(qp *QP) error {
+	if s.m == 0 {
+		return nil
+	}
+	raw := qp.C.RawMatrix()
+	for i := range s.m {
+		row := raw.Data[i*raw.Stride : i*raw.Stride+s.n]
+		idx := s.rowIdx[i*s.n : (i+1)*s.n]
+		sum, abs, nnz := 0.0, 0.0, 0
+		for j, v := range row {
+			sum += v * v
+			abs += math.Abs(v)
+			if v != 0 {
+				idx[nnz] = int32(j)
+				nnz++
+			}
+		}
+		// Rows of difference operators have a few non-zeros; use the
+		// index list when it saves at least half the work.
+		s.rowNNZ[i] = int32(nnz)
+		if 2*nnz > s.n {
+			s.rowNNZ[i] = -1
+		}
+		if math.IsNaN(sum) || math.IsInf(sum, 0) {
+			return ErrQPNotFinite
+		}
+		s.rowNorm[i] = math.Sqrt(sum)
+		s.rowAbs[i] = abs
+		if sum == 0 && (qp.Lo[i] > 0 || qp.Hi[i] < 0) {
+			return ErrQPInfeasible // 0 = Cᵢz outside [Lo, Hi]
 		}
 	}
 	return nil
@@ -532,10 +567,37 @@ func (s *QPSolver) solveRT(x []float64) {
 	}
 }
 
-// warmStart factorises the warm-start active set, computes the
-// equality-constrained minimum and removes constraints with negative
-// multipliers until it is dual feasible.
-func (s *QPSolver) warmStart(z []float64, qp *QP) (int, error) {
+// PrepareWarm factorises the warm-start active set (WarmSet) against the
+// matrix of the last Factorize, so that the next SolveFactorized with warm
+// set starts from it at once: the work that does not depend on g or on the
+// values of the bounds moves into a planner's prepare phase. Only qp.C and
+// which sides of Lo, Hi, LB and UB are finite are read; the QP given to
+// SolveFactorized must have the same C.
+func (s *QPSolver) PrepareWarm(qp *QP) {
+	if !s.factorized {
+		panic("mpc: qp: PrepareWarm before a successful Factorize")
+	}
+	s.checkShape(nil, qp)
+	if err := s.analyseRows(qp); err != nil {
+		s.warmReady = false
+		return // SolveFactorized will report it
+	}
+	s.resetActive()
+	s.addWarmSet(qp)
+	s.warmReady = true
+}
+
+// resetActive restores J = L⁻ᵀ with no active constraint.
+func (s *QPSolver) resetActive() {
+	copy(s.j, s.j0)
+	s.q = 0
+	clear(s.rowSide)
+	clear(s.boundSide)
+}
+
+// addWarmSet adds the constraints of WarmSet that this QP has and that are
+// independent of those added before them.
+func (s *QPSolver) addWarmSet(qp *QP) {
 	add := func(i int, side QPSide) {
 		var code int32
 		switch side {
@@ -568,6 +630,12 @@ func (s *QPSolver) warmStart(z []float64, qp *QP) (int, error) {
 	for j, side := range s.warmBound {
 		add(s.m+j, side)
 	}
+}
+
+// dropNegative computes the minimiser with the active constraints held as
+// equalities and removes constraints with negative multipliers until the
+// point is dual feasible, the starting point the dual method needs.
+func (s *QPSolver) dropNegative(z []float64, qp *QP) (int, error) {
 	iterations := 0
 	for {
 		s.eqpSolve(z, qp)

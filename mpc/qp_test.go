@@ -665,3 +665,84 @@ func TestQPSolveFactorizedMatchesSolve(t *testing.T) {
 		}
 	}
 }
+
+// TestQPPrepareWarm: factorising and preparing the warm set before g is
+// known (the real-time iteration split) gives the same solution as a plain
+// warm Solve, to rounding (1e-12 relative: the same arithmetic in a
+// different order at most).
+func TestQPPrepareWarm(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 1))
+	var problem plannerLikeQP
+	problem.init(rng, 48, 192)
+	plain, split := NewQPSolver(48, 192, QPSettings{}), NewQPSolver(48, 192, QPSettings{})
+	zp, zs := make([]float64, 48), make([]float64, 48)
+	for tick := range 20 {
+		qp := problem.next(rng)
+		rp, err := plain.Solve(zp, qp, tick > 0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := split.Factorize(qp.H); err != nil {
+			t.Fatal(err)
+		}
+		split.PrepareWarm(qp)
+		rs, err := split.SolveFactorized(zs, qp, tick > 0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for j := range zp {
+			if math.Abs(zp[j]-zs[j]) > 1e-12*(1+math.Abs(zp[j])) {
+				t.Fatalf("tick %d: z[%d] %v (Solve) vs %v (prepared)", tick, j, zp[j], zs[j])
+			}
+		}
+		if rp.Iterations != rs.Iterations {
+			t.Errorf("tick %d: %d changes (Solve) vs %d (prepared)", tick, rp.Iterations, rs.Iterations)
+		}
+	}
+	qp := problem.next(rng)
+	allocs := testing.AllocsPerRun(20, func() {
+		if err := split.Factorize(qp.H); err != nil {
+			t.Fatal(err)
+		}
+		split.PrepareWarm(qp)
+		if _, err := split.SolveFactorized(zs, qp, true); err != nil {
+			t.Fatal(err)
+		}
+	})
+	if allocs != 0 {
+		t.Errorf("%v allocations per prepared solve, want 0", allocs)
+	}
+}
+
+// BenchmarkQPFeedback48x192 times only the part of a warm solve that must
+// wait for the observation: Factorize and PrepareWarm run with the timer
+// stopped.
+func BenchmarkQPFeedback48x192(b *testing.B) {
+	rng := rand.New(rand.NewPCG(11, 13))
+	var problem plannerLikeQP
+	problem.init(rng, 48, 192)
+	gs := make([][]float64, 16)
+	for k := range gs {
+		gs[k] = append([]float64(nil), problem.next(rng).G...)
+	}
+	qp := &problem.qp
+	s := NewQPSolver(48, 192, QPSettings{})
+	z := make([]float64, 48)
+	if _, err := s.Solve(z, qp, false); err != nil {
+		b.Fatal(err)
+	}
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		b.StopTimer()
+		if err := s.Factorize(qp.H); err != nil {
+			b.Fatal(err)
+		}
+		s.PrepareWarm(qp)
+		copy(qp.G, gs[i%len(gs)])
+		b.StartTimer()
+		if _, err := s.SolveFactorized(z, qp, true); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
