@@ -81,11 +81,23 @@ func (m *Model) nodeDiff(x []float64, a, b int) [3]float64 {
 // its terms, of each term's sensitivity to its inputs times their size
 // (a rod's ½k(l−L)² computed from coordinates of size |x| is uncertain
 // by about k·|l−L|·eps·(l+L), not by eps times itself); the rounding error
-// of E is a small multiple of eps times this scale. x, xc (x_t) and y must hold the anchored
+// of E is a small multiple of eps times this scale.
+//
+// If floor is not nil it receives, per node, the size of the rounding
+// error expected in that node's gradient: 16·eps times the sum of the
+// magnitudes that enter it (inertia and drag m/h²·|x|, the weight, and
+// k·(l + L) of every rod and string at the node — a rod force is
+// k·(|d| − L), so its rounding follows |d| and L, not the force). A
+// residual at that level cannot be reduced further, so the convergence
+// test (scaledGrad) discounts it; without this a very stiff rod could
+// never reach a tight tolerance. x, xc (x_t) and y must hold the anchored
 // nodes' file positions.
-func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hessMode, hess *bandMatrix) (e, scale float64) {
+func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hessMode, hess *bandMatrix, floor []float64) (e, scale float64) {
 	invH2, invH := 1/(h*h), 1/h
 	clear(g)
+	if floor != nil {
+		clear(floor)
+	}
 	var blk [9]float64
 	for i := range m.nNodes {
 		if m.anchored[i] {
@@ -99,6 +111,12 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 			ei += 0.5*mi*invH2*dy*dy + 0.5*ci*invH*dv*dv
 			g[3*i+c] = mi*invH2*dy + ci*invH*dv
 			scale += (mi*invH2*math.Abs(dy) + ci*invH*math.Abs(dv)) * (math.Abs(x[3*i+c]) + math.Abs(y[3*i+c]) + math.Abs(xc[3*i+c]))
+			if floor != nil {
+				floor[i] += (mi*invH2 + ci*invH) * (math.Abs(x[3*i+c]) + math.Abs(y[3*i+c]) + math.Abs(xc[3*i+c]))
+			}
+		}
+		if floor != nil {
+			floor[i] += mi * math.Abs(m.gravity)
 		}
 		eg := mi * m.gravity * (x[3*i+2] - y[3*i+2])
 		g[3*i+2] += mi * m.gravity
@@ -114,28 +132,25 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 	}
 	for ri := range m.rods {
 		r := &m.rods[ri]
-		u, l := unitOf(m.nodeDiff(x, r.a, r.b))
+		d := m.nodeDiff(x, r.a, r.b)
+		u, l := unitOf(d)
 		f := r.k * (l - r.restLen)
 		er := 0.5 * r.k * (l - r.restLen) * (l - r.restLen)
 		force := [3]float64{f * u[0], f * u[1], f * u[2]}
-		var alpha, beta float64
-		if mode != hessNone {
-			alpha = r.k
-			if l > 0 {
-				beta = f / l
-			}
-			if mode == hessProjected && beta < 0 {
-				beta = 0 // a compressed rod's transverse term is negative: clamp
-			}
-		}
+		fl := r.k * (l + r.restLen) // rounding floor contribution
+		// Rod damping along the rod's direction at x_t.
+		var ut [3]float64
+		damped := false
 		if r.c > 0 {
-			ut, lt := unitOf(m.nodeDiff(xc, r.a, r.b))
+			dt := m.nodeDiff(xc, r.a, r.b)
+			var lt float64
+			ut, lt = unitOf(dt)
 			if lt > 0 {
-				d := m.nodeDiff(x, r.a, r.b)
-				dt := m.nodeDiff(xc, r.a, r.b)
+				damped = true
 				s := (d[0]-dt[0])*ut[0] + (d[1]-dt[1])*ut[1] + (d[2]-dt[2])*ut[2]
 				er += 0.5 * r.c * invH * s * s
 				scale += r.c * invH * math.Abs(s) * (l + lt)
+				fl += r.c * invH * (l + lt)
 				for c := range 3 {
 					force[c] += r.c * invH * s * ut[c]
 				}
@@ -143,6 +158,10 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 		}
 		e += er
 		scale += math.Abs(f)*(l+r.restLen) + math.Abs(er)
+		if floor != nil {
+			floor[r.a] += fl
+			floor[r.b] += fl
+		}
 		for c := range 3 {
 			g[3*r.a+c] += force[c]
 			g[3*r.b+c] -= force[c]
@@ -150,14 +169,19 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 		if mode == hessNone {
 			continue
 		}
+		alpha, beta := r.k, 0.0
+		if l > 0 {
+			beta = f / l
+		}
+		if mode == hessProjected && beta < 0 {
+			beta = 0 // a compressed rod's transverse term is negative: clamp
+		}
 		axisHess(&blk, u, alpha, beta)
-		if r.c > 0 { // rod damping: c/h·ûₜûₜᵀ
-			if ut, lt := unitOf(m.nodeDiff(xc, r.a, r.b)); lt > 0 {
-				w := r.c * invH
-				for a := range 3 {
-					for b := range 3 {
-						blk[3*a+b] += w * ut[a] * ut[b]
-					}
+		if damped { // rod damping: c/h·ûₜûₜᵀ
+			w := r.c * invH
+			for a := range 3 {
+				for b := range 3 {
+					blk[3*a+b] += w * ut[a] * ut[b]
 				}
 			}
 		}
@@ -171,6 +195,9 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 		phi, t, kappa := stringRamp(l-st.RestLengthM, st.StiffnessNPerM, m.slackW)
 		e += phi
 		scale += t*(l+st.RestLengthM) + phi
+		if floor != nil {
+			floor[n] += st.StiffnessNPerM * (l + st.RestLengthM)
+		}
 		if m.anchored[n] {
 			continue
 		}
@@ -183,6 +210,11 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 		m.stringHess(&blk, u, l, t, kappa)
 		p := m.slot[n]
 		hess.addBlock(p, p, &blk, 1)
+	}
+	if floor != nil {
+		for i := range floor {
+			floor[i] *= 16 * 0x1p-52
+		}
 	}
 	return e, scale
 }
@@ -281,42 +313,5 @@ func (m *Model) StringTension(i int, x, anchors []float64) float64 {
 func (m *Model) checkLens(x, xPrev, anchors []float64) {
 	if len(x) != m.Dim() || (xPrev != nil && len(xPrev) != m.Dim()) || len(anchors) != 3*len(m.strs) {
 		panic("sim: state or anchor vector of the wrong length")
-	}
-}
-
-// roundingFloor writes into floor, per node, the size of the rounding
-// error expected in that node's gradient: machine epsilon times the sum
-// of the magnitudes that enter it (inertia m/h²·|x|, drag, weight, and
-// k·(l + L) of every rod and string at the node — a rod force is
-// k·(|d| − L), so its rounding follows |d| and L, not the force). A
-// residual at this level cannot be reduced further, so the convergence
-// test (scaledGrad) discounts it; without this a very stiff rod could
-// never reach a tight tolerance.
-func (m *Model) roundingFloor(floor, x, xc, y, anchors []float64, h float64) {
-	const eps = 0x1p-52
-	invH2, invH := 1/(h*h), 1/h
-	norm := func(v []float64, i int) float64 {
-		return math.Abs(v[3*i]) + math.Abs(v[3*i+1]) + math.Abs(v[3*i+2])
-	}
-	for i := range m.nNodes {
-		floor[i] = m.mass[i]*invH2*(norm(x, i)+norm(y, i)) + m.drag[i]*invH*(norm(x, i)+norm(xc, i)) + m.mass[i]*math.Abs(m.gravity)
-	}
-	for ri := range m.rods {
-		r := &m.rods[ri]
-		_, l := unitOf(m.nodeDiff(x, r.a, r.b))
-		_, lt := unitOf(m.nodeDiff(xc, r.a, r.b))
-		v := r.k*(l+r.restLen) + r.c*invH*(l+lt)
-		floor[r.a] += v
-		floor[r.b] += v
-	}
-	for si := range m.strs {
-		st := &m.strs[si]
-		n := st.Node
-		d := [3]float64{x[3*n] - anchors[3*si], x[3*n+1] - anchors[3*si+1], x[3*n+2] - anchors[3*si+2]}
-		_, l := unitOf(d)
-		floor[n] += st.StiffnessNPerM * (l + st.RestLengthM)
-	}
-	for i := range floor {
-		floor[i] *= 16 * eps
 	}
 }

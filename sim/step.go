@@ -13,11 +13,11 @@ type Workspace struct {
 	m *Model
 
 	x, xc, xp, y, g  []float64 // external order, length Dim
-	floor            []float64 // per node: rounding level of the gradient
+	floor, floorTry  []float64 // per node: rounding level of the gradient
 	xTry, gTry, dir  []float64
 	anchors          []float64
-	rhs              []float64 // band order, length 3×free nodes
-	hess             bandMatrix
+	rhs              []float64   // band order, length 3×free nodes
+	hess, hessTry    *bandMatrix // Newton Hessians at x and at the line search's trial point
 	own              stepDerivs
 	d                *stepDerivs // where Step leaves the exact factor; own unless a Rollout points it elsewhere
 	valid            bool        // d holds a successful step
@@ -45,8 +45,11 @@ func (m *Model) NewWorkspace() *Workspace {
 	}
 	ws.anchors = make([]float64, 3*len(m.strs))
 	ws.floor = make([]float64, m.nNodes)
+	ws.floorTry = make([]float64, m.nNodes)
 	ws.rhs = make([]float64, nf)
+	ws.hess, ws.hessTry = &bandMatrix{}, &bandMatrix{}
 	ws.hess.reset(nf, m.kd)
+	ws.hessTry.reset(nf, m.kd)
 	ws.own.init(m)
 	ws.d = &ws.own
 	return ws
@@ -120,13 +123,28 @@ func (m *Model) loadStates(ws *Workspace, xCur, xPrev []float64) {
 	copy(ws.x, ws.y)
 }
 
+// evaluate computes E, its rounding scale, the gradient ws.g and the
+// gradient's rounding floor ws.floor at x, and, if withHess, the Hessian
+// tried first for directions (m.firstHess) into ws.hess.
+func (m *Model) evaluate(ws *Workspace, x []float64, h float64, withHess bool) (e, scale float64) {
+	if !withHess {
+		return m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, hessNone, nil, ws.floor)
+	}
+	ws.hess.reset(ws.hess.n, ws.hess.kd)
+	return m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, m.firstHess, ws.hess, ws.floor)
+}
+
 // newton minimises the incremental objective with time step h from the
-// guess in x (in place), with x_t, y and anchors taken from ws.
+// guess in x (in place), with x_t, y and anchors taken from ws. On success
+// ws.hess holds the (unfactorised) Hessian of kind m.firstHess at x.
+//
+// Each iteration assembles the Hessian together with the gradient at the
+// point the line search accepts, so a full Newton step costs one pass over
+// the elements, one band factorisation and one band solve.
 func (m *Model) newton(ws *Workspace, x []float64, h float64, maxIters int) error {
-	e, _ := m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, hessNone, nil)
+	e, scale := m.evaluate(ws, x, h, true)
 	ws.iters = 0
 	for {
-		m.roundingFloor(ws.floor, x, ws.xc, ws.y, ws.anchors, h)
 		res := m.scaledGrad(ws.g, ws.floor, h)
 		if res <= m.gradTol {
 			return nil
@@ -136,34 +154,30 @@ func (m *Model) newton(ws *Workspace, x []float64, h float64, maxIters int) erro
 		}
 		ws.iters++
 		var err error
-		if e, _, err = m.newtonIter(ws, x, h, e, res); err != nil {
+		if e, scale, _, err = m.newtonIter(ws, x, h, e, scale, res); err != nil {
 			return err
 		}
 	}
 }
 
-// newtonIter takes one Newton iteration from x (in place, with its
-// objective e, gradient in ws.g and mass-scaled residual res): the search
-// direction solves the exact Hessian if it is positive definite and the
-// projected one otherwise, and a backtracking line search
-// on E accepts the first step of sufficient decrease. It returns the new E
-// with the new gradient in ws.g, and the step length taken (1 for a full
-// Newton step).
-func (m *Model) newtonIter(ws *Workspace, x []float64, h, e, res float64) (eNew, alpha float64, err error) {
+// newtonIter takes one Newton iteration from x (in place) given E there
+// (e, with rounding scale), ws.g, ws.floor, the residual res and the
+// Hessian in ws.hess, all at x. The search direction solves that Hessian
+// — the exact one if it is positive definite, else the projected one
+// (compressed rods' transverse terms clamped at zero), which always is
+// and still gives descent — and a backtracking line search on E accepts
+// the first step of sufficient decrease. On return the same quantities
+// hold at the new x; alpha is the step length taken (1 for a full step).
+func (m *Model) newtonIter(ws *Workspace, x []float64, h, e, scale, res float64) (eNew, scaleNew, alpha float64, err error) {
 	const (
 		armijo      = 1e-4 // sufficient decrease (common practice, Nocedal & Wright, Numerical Optimization, §3.1)
 		maxHalvings = 40
 	)
-	// The exact Hessian first: when it is positive definite (usual, as the
-	// mass term M/h² dominates) Newton converges quadratically. Otherwise
-	// the projected one, which always is, and still gives descent.
-	ws.hess.reset(ws.hess.n, ws.hess.kd)
-	_, scale := m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, m.firstHess, &ws.hess)
 	if !ws.hess.factorize() {
 		ws.hess.reset(ws.hess.n, ws.hess.kd)
-		m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, hessProjected, &ws.hess)
+		m.incremental(ws.gTry, x, ws.xc, ws.y, ws.anchors, h, hessProjected, ws.hess, nil)
 		if !ws.hess.factorize() {
-			return e, 0, fmt.Errorf("%w: the projected Hessian could not be factorised", ErrNoConvergence)
+			return e, scale, 0, fmt.Errorf("%w: the projected Hessian could not be factorised", ErrNoConvergence)
 		}
 	}
 	m.toBand(ws.rhs, ws.g)
@@ -177,27 +191,34 @@ func (m *Model) newtonIter(ws *Workspace, x []float64, h, e, res float64) (eNew,
 		for k := range x {
 			ws.xTry[k] = x[k] + alpha*ws.dir[k]
 		}
-		eTry, _ := m.incremental(ws.gTry, ws.xTry, ws.xc, ws.y, ws.anchors, h, hessNone, nil)
+		ws.hessTry.reset(ws.hessTry.n, ws.hessTry.kd)
+		eTry, scaleTry := m.incremental(ws.gTry, ws.xTry, ws.xc, ws.y, ws.anchors, h, m.firstHess, ws.hessTry, ws.floorTry)
 		// Armijo's sufficient decrease; or, near the solution where the
 		// change of E is lost in rounding, a step that keeps E within its
-		// rounding and at least halves the residual.
+		// rounding and shrinks the residual by at least a tenth.
 		if eTry <= e+armijo*alpha*slope ||
-			(eTry <= e+roundE && m.scaledGrad(ws.gTry, ws.floor, h) <= res/2) {
+			(eTry <= e+roundE && m.scaledGrad(ws.gTry, ws.floorTry, h) <= 0.9*res) {
 			copy(x, ws.xTry)
-			copy(ws.g, ws.gTry)
-			return eTry, alpha, nil
+			ws.g, ws.gTry = ws.gTry, ws.g
+			ws.floor, ws.floorTry = ws.floorTry, ws.floor
+			ws.hess, ws.hessTry = ws.hessTry, ws.hess
+			return eTry, scaleTry, alpha, nil
 		}
 		alpha /= 2
 	}
-	return e, 0, fmt.Errorf("%w: the line search found no decrease (mass-scaled residual %.3g m)", ErrNoConvergence, res)
+	return e, scale, 0, fmt.Errorf("%w: the line search found no decrease (mass-scaled residual %.3g m)", ErrNoConvergence, res)
 }
 
-// finishStep factorises the exact Hessian at the solution ws.x and computes
-// the derivative blocks into ws.d.
+// finishStep factorises the exact Hessian at the solution ws.x into ws.d
+// and computes the derivative blocks there.
 func (m *Model) finishStep(ws *Workspace) error {
 	d := ws.d
-	d.chol.reset(d.chol.n, d.chol.kd)
-	m.incremental(ws.gTry, ws.x, ws.xc, ws.y, ws.anchors, m.h, hessExact, &d.chol)
+	if m.firstHess == hessExact {
+		copy(d.chol.data, ws.hess.data) // newton left it at ws.x
+	} else {
+		d.chol.reset(d.chol.n, d.chol.kd)
+		m.incremental(ws.gTry, ws.x, ws.xc, ws.y, ws.anchors, m.h, hessExact, &d.chol, nil)
+	}
 	if !d.chol.factorize() {
 		return ErrIndefinite
 	}
@@ -207,7 +228,7 @@ func (m *Model) finishStep(ws *Workspace) error {
 
 // scaledGrad is the largest, over free nodes, of (|∇E_i| − floor_i)·h²/m_i:
 // the position error in metres that the residual force implies, beyond
-// what rounding alone produces (roundingFloor).
+// what rounding alone produces (the floor from incremental).
 func (m *Model) scaledGrad(g, floor []float64, h float64) float64 {
 	var worst float64
 	for i := range m.nNodes {

@@ -31,16 +31,16 @@ func (m *Model) RestPose(ws *Workspace, dst, anchors []float64) error {
 	m.loadStates(ws, m.fixedPos, m.fixedPos)
 	hRelax := firstRelaxS
 	for range maxIters {
+		// From rest at x (x_t = x_{t−1} = y = x) the gradient is ∇U.
 		copy(ws.xp, ws.x)
 		copy(ws.xc, ws.x)
 		copy(ws.y, ws.x)
-		e, _ := m.incremental(ws.g, ws.x, ws.xc, ws.y, ws.anchors, hRelax, hessNone, nil)
-		m.roundingFloor(ws.floor, ws.x, ws.xc, ws.y, ws.anchors, hRelax)
+		e, scale := m.evaluate(ws, ws.x, hRelax, true)
 		if m.scaledGrad(ws.g, ws.floor, m.h) <= m.gradTol {
 			copy(dst, ws.x)
 			return nil
 		}
-		_, alpha, err := m.newtonIter(ws, ws.x, hRelax, e, m.scaledGrad(ws.g, ws.floor, hRelax))
+		_, _, alpha, err := m.newtonIter(ws, ws.x, hRelax, e, scale, m.scaledGrad(ws.g, ws.floor, hRelax))
 		if err != nil {
 			return err
 		}
