@@ -10,87 +10,6 @@ import (
 	"tautline/sim"
 )
 
-// The estimator is an extended Kalman filter over the figure's state.
-//
-// # State
-//
-// The state is the figure's positions at two consecutive grid times,
-// stacked: s = (x_k, x_{k−1}) ∈ R^{2D}, D = 3·nodes (every node, anchored
-// ones included; the process holds those fixed and gives them no process
-// noise). This is the state the backward-Euler step in position form works
-// on, so the process model is the step itself,
-//
-//	x_{k+1} = f(x_k, x_{k−1}, q_{k+1}) + h²·w,   w ~ N(0, σ_a²·I),
-//
-// with q_{k+1} the joints at the end of the step (they place the string
-// anchors) and h the step. Its Jacobian is block structured,
-//
-//	F = [ ∂f/∂x_k  ∂f/∂x_{k−1} ]
-//	    [    I          0      ],
-//
-// and the two blocks are the step's sensitivities (sim's implicit-function
-// derivatives). Velocities are (x_k − x_{k−1})/h, as in the step. The noise
-// term is an unmodelled acceleration held over one step: in position form it
-// shifts x_{k+1} by h²·w (the position-form counterpart of the discrete
-// white-noise acceleration model of Bar-Shalom, Li and Kirubarajan,
-// "Estimation with Applications to Tracking and Navigation", 2001, §6.3.3).
-// A small position random walk σ_p is added on top (model mismatch that is
-// not an acceleration, and the step's own solve tolerance).
-//
-// # Measurements
-//
-// A marker observation is the marker's position in the tracker frame; it is
-// mapped to the world frame with the cell's tracker→world pose and measures
-// its node's position in x_k with independent noise of standard deviation
-// σ_m per coordinate (the cell's marker noise; a rotation keeps isotropic
-// noise isotropic). A marker that is not in an observation is simply not
-// measured. Each marker is gated on its own innovation ν against the
-// predicted state: with S = P_nn + σ_m²·I its 3×3 innovation covariance, a
-// marker with νᵀS⁻¹ν above the gate (default the 99.9 % quantile of the
-// chi-square distribution with 3 degrees of freedom, 16.266) is rejected and
-// listed in the report. One exception: when more than half of an
-// observation's markers, and at least two, fail the gate, the state is
-// taken to be off rather than the markers (a push, a knock), every marker
-// is used and the report says GateOverruled; otherwise a pushed figure would
-// reject every marker from then on. The markers used are applied in one
-// batch update.
-//
-// # Timing (all times are cue times in seconds)
-//
-// The filter lives on a grid t_k = t₀ + k·h, where t₀ is the capture time of
-// the first observation after construction or Reset and h the process step
-// (normally the cell's tick). Observe rounds a capture time to the nearest
-// grid time (the difference is reported) and requires it to be later than
-// the filter's current grid time; it predicts the filter from its time to the
-// capture time, one step per grid interval, then updates with the markers.
-// An observation more than MaxPredictSteps steps after the filter's time
-// initialises the filter afresh (the report says so), as after Reset.
-//
-// Joints along the way: the joints at a grid time t come from a piecewise
-// linear joint path through these points, in time order: the measured
-// joints of the previous observation (at the filter's time), every command
-// recorded with RecordCommand whose apply time lies strictly between that
-// and the capture time, and the measured joints of this observation (at the
-// capture time). So a step that ends at the capture time uses the measured
-// joints exactly.
-//
-// Latency compensation: PredictTo advances the filtered mean (not the
-// covariance, which the planner does not use) from the filter's time to the
-// time the next command will apply, with joints from the path through the
-// measured joints at the filter's time and every recorded command after it;
-// beyond the last recorded command the joints hold its value. A command
-// recorded with apply time τ means "the arm is at these joints at τ"; record
-// each command once it is sent, and, if the joints for the apply time itself
-// are known (the nominal plus the correction in force), record them too.
-//
-// # Failures
-//
-// Observations with a NaN or infinite value, unknown or repeated markers, a
-// joint vector of the wrong length or a time that does not move forward are
-// errors; so is a step that does not converge or an innovation covariance
-// that is not positive definite. On any error the estimator is left exactly
-// as it was before the call.
-
 // Defaults used when an EstimatorSettings field is zero.
 const (
 	// DefaultProcessAccelMPerS2 is the standard deviation of the unmodelled
@@ -246,6 +165,105 @@ var (
 // Estimator is the extended Kalman filter over one figure. It is a value
 // with no clock: every time comes in as an argument. Make one per session
 // with NewEstimator; it is not safe for concurrent use.
+//
+// # State
+//
+// The state is the figure's positions at two consecutive grid times,
+// stacked: s = (x_k, x_{k−1}) ∈ R^{2D}, D = 3·nodes (every node, anchored
+// ones included; the process holds those fixed and gives them no process
+// noise). This is the state the backward-Euler step in position form works
+// on, so the process model is the step itself,
+//
+//	x_{k+1} = f(x_k, x_{k−1}, q_{k+1}) + h²·w,   w ~ N(0, σ_a²·I),
+//
+// with q_{k+1} the joints at the end of the step (they place the string
+// anchors) and h the step. Its Jacobian is block structured,
+//
+//	F = [ ∂f/∂x_k  ∂f/∂x_{k−1} ]
+//	    [    I          0      ],
+//
+// and the two blocks are the step's sensitivities (sim's implicit-function
+// derivatives). Velocities are (x_k − x_{k−1})/h, as in the step. The noise
+// term is an unmodelled acceleration held over one step: in position form it
+// shifts x_{k+1} by h²·w (the position-form counterpart of the discrete
+// white-noise acceleration model of Bar-Shalom, Li and Kirubarajan,
+// "Estimation with Applications to Tracking and Navigation", 2001, §6.3.3).
+// A small position random walk σ_p is added on top (model mismatch that is
+// not an acceleration, and the step's own solve tolerance).
+//
+// # Measurements
+//
+// A marker observation is the marker's position in the tracker frame; it is
+// mapped to the world frame with the cell's tracker→world pose and measures
+// its node's position in x_k with independent noise of standard deviation
+// σ_m per coordinate (the cell's marker noise; a rotation keeps isotropic
+// noise isotropic). A marker that is not in an observation is simply not
+// measured. Each marker is gated on its own innovation ν against the
+// predicted state: with S = P_nn + σ_m²·I its 3×3 innovation covariance, a
+// marker with νᵀS⁻¹ν above the gate (default the 99.9 % quantile of the
+// chi-square distribution with 3 degrees of freedom, 16.266) is rejected and
+// listed in the report. One exception: when more than half of an
+// observation's markers, and at least two, fail the gate, the state is
+// taken to be off rather than the markers (a push, a knock), every marker
+// is used and the report says GateOverruled; otherwise a pushed figure would
+// reject every marker from then on. The markers used are applied in one
+// batch update.
+//
+// # Timing (all times are cue times in seconds)
+//
+// The filter lives on a grid t_k = t₀ + k·h, where t₀ is the capture time of
+// the first observation after construction or Reset and h the process step
+// (normally the cell's tick). Observe rounds a capture time to the nearest
+// grid time (the difference is reported) and requires it to be later than
+// the filter's current grid time; it predicts the filter from its time to the
+// capture time, one step per grid interval, then updates with the markers.
+// An observation more than MaxPredictSteps steps after the filter's time
+// initialises the filter afresh (the report says so), as after Reset.
+//
+// Joints along the way: the joints at a grid time t come from a piecewise
+// linear joint path through these points, in time order: the measured
+// joints of the previous observation (at the filter's time), every command
+// recorded with RecordCommand whose apply time lies strictly between that
+// and the capture time, and the measured joints of this observation (at the
+// capture time). So a step that ends at the capture time uses the measured
+// joints exactly.
+//
+// Latency compensation: PredictTo advances the filtered mean (not the
+// covariance, which the planner does not use) from the filter's time to the
+// time the next command will apply, with joints from the path through the
+// measured joints at the filter's time and every recorded command after it;
+// beyond the last recorded command the joints hold its value. A command
+// recorded with apply time τ means "the arm is at these joints at τ"; record
+// each command once it is sent, and, if the joints for the apply time itself
+// are known (the nominal plus the correction in force), record them too.
+//
+// # Per tick
+//
+// A session's tick, in order:
+//
+//  1. Observe the frame (its capture time, the joints measured at that
+//     time, the visible markers); act on the report (Stale: coast).
+//  2. RecordCommand the best guess of the joints at the coming apply time
+//     (the nominal plus the correction in force), then PredictTo that
+//     time: the planner's initial state.
+//  3. Plan and guard, then RecordCommand the joints actually sent for that
+//     apply time (it replaces the guess).
+//
+// # Failures
+//
+// Observations with a NaN or infinite value, unknown or repeated markers, a
+// joint vector of the wrong length or a time that does not move forward are
+// errors; so is a step that does not converge or an innovation covariance
+// that is not positive definite. On any error the estimator is left exactly
+// as it was before the call.
+//
+// # Lost markers
+//
+// The report counts consecutive observations that brought no accepted
+// marker (none visible, or all rejected) and says Stale once the count
+// reaches StaleAfterTicks; the filter keeps predicting on the model alone
+// meanwhile, and the caller decides when to stop trusting it (the server
+// coasts).
 type Estimator struct {
 	proc    Process
 	markers MarkerSet
@@ -267,24 +285,22 @@ type Estimator struct {
 	cmds commandRing
 
 	// Scratch.
-	wMean, wCov   []float64 // working copies, committed on success
-	wJoints       []float64
-	stepNext      []float64
-	dCur, dPrev   *mat.Dense
-	g, t, s11     []float64 // propagation: G = [A B] (D×2D), T = G·P (D×2D), new P11 (D×D)
-	qStep         []float64
-	seen          []bool // per marker, duplicates check
-	accepted      []int  // accepted markers of this observation (indices into the observation)
-	world         [][3]float64
-	innov         []float64 // 3m
-	sMat          []float64 // (3m)², innovation covariance, then its Cholesky factor
-	wt            []float64 // 3m × 2D: rows of P for the measured coordinates, then L⁻¹ of them
-	predJoints    []float64
-	predCur       []float64
-	predPrev      []float64
-	predNext      []float64
-	variances     []float64
-	rejectScratch []RejectedMarker
+	wMean, wCov []float64 // working copies, committed on success
+	stepNext    []float64
+	dCur, dPrev *mat.Dense
+	g, t, s11   []float64 // propagation: G = [A B] (D×2D), T = G·P (D×2D), new P11 (D×D)
+	qStep       []float64
+	seen        []bool // per marker, duplicates check
+	accepted    []int  // accepted markers of this observation (indices into the observation)
+	world       [][3]float64
+	innov       []float64 // 3m
+	sMat        []float64 // (3m)², innovation covariance, then its Cholesky factor
+	wt          []float64 // 3m × 2D: rows of P for the measured coordinates, then L⁻¹ of them
+	predJoints  []float64
+	predCur     []float64
+	predPrev    []float64
+	predNext    []float64
+	variances   []float64 // process noise variance per coordinate
 }
 
 // NewEstimator makes an estimator for a process (the figure's step) and the
@@ -317,39 +333,37 @@ func NewEstimator(p Process, m MarkerSet, s EstimatorSettings) (*Estimator, erro
 	nm := len(m.Nodes)
 	n := 2 * d
 	e := &Estimator{
-		proc:          p,
-		markers:       MarkerSet{Nodes: append([]int(nil), m.Nodes...), NoiseM: m.NoiseM, TrackerToWorld: m.TrackerToWorld},
-		set:           s,
-		d:             d,
-		nj:            nj,
-		h:             h,
-		fixed:         make([]bool, d),
-		mean:          make([]float64, n),
-		cov:           make([]float64, n*n),
-		joints:        make([]float64, nj),
-		cmds:          newCommandRing(s.CommandHistory, nj),
-		wMean:         make([]float64, n),
-		wCov:          make([]float64, n*n),
-		wJoints:       make([]float64, nj),
-		stepNext:      make([]float64, d),
-		dCur:          mat.NewDense(d, d, nil),
-		dPrev:         mat.NewDense(d, d, nil),
-		g:             make([]float64, d*n),
-		t:             make([]float64, d*n),
-		s11:           make([]float64, d*d),
-		qStep:         make([]float64, nj),
-		seen:          make([]bool, nm),
-		accepted:      make([]int, 0, nm),
-		world:         make([][3]float64, nm),
-		innov:         make([]float64, 3*nm),
-		sMat:          make([]float64, 9*nm*nm),
-		wt:            make([]float64, 3*nm*n),
-		predJoints:    make([]float64, nj),
-		predCur:       make([]float64, d),
-		predPrev:      make([]float64, d),
-		predNext:      make([]float64, d),
-		variances:     make([]float64, d),
-		rejectScratch: make([]RejectedMarker, 0, nm),
+		proc:       p,
+		markers:    MarkerSet{Nodes: append([]int(nil), m.Nodes...), NoiseM: m.NoiseM, TrackerToWorld: m.TrackerToWorld},
+		set:        s,
+		d:          d,
+		nj:         nj,
+		h:          h,
+		fixed:      make([]bool, d),
+		mean:       make([]float64, n),
+		cov:        make([]float64, n*n),
+		joints:     make([]float64, nj),
+		cmds:       newCommandRing(s.CommandHistory, nj),
+		wMean:      make([]float64, n),
+		wCov:       make([]float64, n*n),
+		stepNext:   make([]float64, d),
+		dCur:       mat.NewDense(d, d, nil),
+		dPrev:      mat.NewDense(d, d, nil),
+		g:          make([]float64, d*n),
+		t:          make([]float64, d*n),
+		s11:        make([]float64, d*d),
+		qStep:      make([]float64, nj),
+		seen:       make([]bool, nm),
+		accepted:   make([]int, 0, nm),
+		world:      make([][3]float64, nm),
+		innov:      make([]float64, 3*nm),
+		sMat:       make([]float64, 9*nm*nm),
+		wt:         make([]float64, 3*nm*n),
+		predJoints: make([]float64, nj),
+		predCur:    make([]float64, d),
+		predPrev:   make([]float64, d),
+		predNext:   make([]float64, d),
+		variances:  make([]float64, d),
 	}
 	for i := range e.fixed {
 		e.fixed[i] = p.Fixed(i)

@@ -277,7 +277,13 @@ func TestPathJointsInterpolatesCommands(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	if err := e.RecordCommand(1.02, []float64{0}); !errors.Is(err, ErrTimeOrder) {
+	if err := e.RecordCommand(1.01, []float64{0}); !errors.Is(err, ErrTimeOrder) {
+		t.Fatalf("earlier apply time: %v", err)
+	}
+	if err := e.RecordCommand(1.02, []float64{-1}); err != nil {
+		t.Fatalf("repeated apply time: %v", err)
+	}
+	if err := e.RecordCommand(1.02, []float64{3}); err != nil { // replaces −1
 		t.Fatalf("repeated apply time: %v", err)
 	}
 	dst := []float64{0}

@@ -50,9 +50,10 @@ func (r *commandRing) push(t float64, q []float64) {
 }
 
 // RecordCommand records joints sent to the arms that will be in force at
-// cue time applyTimeS (see the timing model in the package's estimator
-// notes). Apply times must increase strictly from call to call; Reset
-// clears the record. NaN or infinite values and a joint vector of the wrong
+// cue time applyTimeS (see the timing model on Estimator). Apply times must not decrease from call to call; recording the
+// latest apply time again replaces its joints (record a guess before
+// PredictTo, the command actually sent after planning). Reset clears the
+// record. NaN or infinite values and a joint vector of the wrong
 // length are errors.
 func (e *Estimator) RecordCommand(applyTimeS float64, joints []float64) error {
 	if math.IsNaN(applyTimeS) || math.IsInf(applyTimeS, 0) {
@@ -66,8 +67,15 @@ func (e *Estimator) RecordCommand(applyTimeS float64, joints []float64) error {
 			return fmt.Errorf("%w: command joint %d is %g", ErrBadObservation, i, v)
 		}
 	}
-	if t, ok := e.cmds.last(); ok && !(applyTimeS > t) {
-		return fmt.Errorf("%w: command apply time %g s is not after the previous one, %g s", ErrTimeOrder, applyTimeS, t)
+	if t, ok := e.cmds.last(); ok {
+		if applyTimeS == t {
+			_, q := e.cmds.at(e.cmds.count - 1)
+			copy(q, joints)
+			return nil
+		}
+		if applyTimeS < t {
+			return fmt.Errorf("%w: command apply time %g s is before the previous one, %g s", ErrTimeOrder, applyTimeS, t)
+		}
 	}
 	e.cmds.push(applyTimeS, joints)
 	return nil
