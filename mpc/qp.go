@@ -72,6 +72,8 @@ var (
 	// unbounded), or a lower side exceeds its upper side.
 	ErrQPInfeasible = errors.New("mpc: qp: constraints are infeasible")
 	// ErrQPIterationLimit: MaxIterations active-set changes were not enough.
+	// z then holds the last iterate: the minimiser subject to the
+	// constraints active so far, which may violate others.
 	ErrQPIterationLimit = errors.New("mpc: qp: iteration limit reached")
 	// ErrQPNotConvex: H is not numerically positive definite.
 	ErrQPNotConvex = errors.New("mpc: qp: H is not positive definite")
