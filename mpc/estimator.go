@@ -255,7 +255,9 @@ var (
 // joint vector of the wrong length or a time that does not move forward are
 // errors; so is a step that does not converge or an innovation covariance
 // that is not positive definite. On any error the estimator is left exactly
-// as it was before the call.
+// as it was before the call. The last two mean the state itself is unusable
+// (it makes the model fail, or the covariance lost definiteness): Reset,
+// and the next observation initialises the filter again.
 //
 // # Lost markers
 //
