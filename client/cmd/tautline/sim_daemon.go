@@ -1,0 +1,126 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"net"
+	"os"
+	"time"
+
+	"tautline/client"
+	"tautline/server"
+)
+
+// daemonFlags are the flags of every subcommand that talks to a daemon:
+// its address (or none, to start one in this process) and TLS files.
+type daemonFlags struct {
+	addr                      string
+	caFile, certFile, keyFile string
+	captureDir                string
+}
+
+func (d *daemonFlags) bind(fs *flag.FlagSet, inProcessHelp string) {
+	fs.StringVar(&d.addr, "addr", "", "daemon address host:port; empty: "+inProcessHelp)
+	fs.StringVar(&d.caFile, "tls-ca", "", "CA bundle (PEM) the daemon's certificate must chain to (turns TLS on)")
+	fs.StringVar(&d.certFile, "tls-cert", "", "client certificate (PEM) for a daemon that requires one")
+	fs.StringVar(&d.keyFile, "tls-key", "", "client private key (PEM)")
+	fs.StringVar(&d.captureDir, "daemon-capture-dir", "", "where an in-process daemon writes its own captures (empty: a temporary directory, removed at exit)")
+}
+
+// connection is a client to a daemon, and the in-process daemon if one was
+// started.
+type connection struct {
+	*client.Client
+	daemon *inProcessDaemon
+}
+
+func (c *connection) Close() error {
+	err := c.Client.Close()
+	if c.daemon != nil {
+		err = errors.Join(err, c.daemon.stop())
+	}
+	return err
+}
+
+// connect dials d.addr, or starts a daemon in this process serving cellPath
+// and dials it.
+func (d *daemonFlags) connect(cellPath string, tweak func(*server.Config)) (*connection, error) {
+	if d.addr != "" {
+		c, err := client.Dial(d.addr, client.DialSettings{CAFile: d.caFile, CertFile: d.certFile, KeyFile: d.keyFile})
+		if err != nil {
+			return nil, err
+		}
+		return &connection{Client: c}, nil
+	}
+	dm, err := startDaemon(cellPath, d.captureDir, tweak)
+	if err != nil {
+		return nil, err
+	}
+	c, err := client.Dial(dm.addr, client.DialSettings{})
+	if err != nil {
+		dm.stop()
+		return nil, err
+	}
+	return &connection{Client: c, daemon: dm}, nil
+}
+
+// inProcessDaemon is a tautlined served from this process on an ephemeral
+// loopback port.
+type inProcessDaemon struct {
+	srv     *server.Server
+	addr    string
+	served  chan error
+	tempDir string // removed by stop
+}
+
+// startDaemon serves cellPath on 127.0.0.1 at a free port with the default
+// configuration (quiet logs), captures in captureDir or a temporary
+// directory. tweak, if not nil, edits the configuration first.
+func startDaemon(cellPath, captureDir string, tweak func(*server.Config)) (*inProcessDaemon, error) {
+	cfg := server.DefaultConfig()
+	cfg.Cells = []string{cellPath}
+	dm := &inProcessDaemon{served: make(chan error, 1)}
+	if captureDir == "" {
+		dir, err := os.MkdirTemp("", "tautline-daemon-")
+		if err != nil {
+			return nil, err
+		}
+		dm.tempDir, captureDir = dir, dir
+	}
+	cfg.CaptureDir = captureDir
+	if tweak != nil {
+		tweak(&cfg)
+	}
+	lis, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		dm.cleanup()
+		return nil, fmt.Errorf("in-process daemon: %w", err)
+	}
+	cfg.Listen = lis.Addr().String()
+	srv, err := server.New(cfg, nil)
+	if err != nil {
+		lis.Close()
+		dm.cleanup()
+		return nil, fmt.Errorf("in-process daemon: %w", err)
+	}
+	dm.srv, dm.addr = srv, cfg.Listen
+	go func() { dm.served <- srv.Serve(lis) }()
+	return dm, nil
+}
+
+func (dm *inProcessDaemon) cleanup() {
+	if dm.tempDir != "" {
+		os.RemoveAll(dm.tempDir)
+	}
+}
+
+func (dm *inProcessDaemon) stop() error {
+	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	defer cancel()
+	err := dm.srv.Shutdown(ctx)
+	err = errors.Join(err, <-dm.served)
+	dm.cleanup()
+	return err
+}
