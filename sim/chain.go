@@ -19,6 +19,10 @@ const (
 	Continuous
 	// Prismatic joints slide along their axis within position limits (m).
 	Prismatic
+	// Floating and Planar joints appear in URDF values only; Chain refuses
+	// them (an arm joint moves along or about one axis).
+	Floating
+	Planar
 )
 
 // String returns the URDF name of the kind.
@@ -32,6 +36,10 @@ func (k JointKind) String() string {
 		return "continuous"
 	case Prismatic:
 		return "prismatic"
+	case Floating:
+		return "floating"
+	case Planar:
+		return "planar"
 	}
 	return fmt.Sprintf("JointKind(%d)", int(k))
 }
@@ -114,6 +122,28 @@ func (u *URDF) Chain(base, tip string) (*Chain, error) {
 			return nil, linkErr(tip, "the joints above link %q form a loop", tip)
 		}
 		link = u.Joints[k].Parent
+	}
+
+	for i := len(path) - 1; i >= 0; i-- {
+		j := &u.Joints[path[i]]
+		var refuse FileError
+		switch {
+		case j.unsupported != nil:
+			refuse = *j.unsupported
+		case j.Kind == Floating || j.Kind == Planar:
+			refuse = FileError{File: u.File, Line: j.Line, Col: j.Col, Field: "joint[" + j.Name + "]@type",
+				Msg: fmt.Sprintf("type %q is not supported on an arm", j.Kind)}
+		case j.Mimic != "":
+			refuse = FileError{File: u.File, Line: j.Line, Col: j.Col, Field: "joint[" + j.Name + "]/mimic",
+				Msg: "mimic joints are not supported"}
+		case j.Kind < Fixed || j.Kind > Prismatic:
+			refuse = FileError{File: u.File, Line: j.Line, Col: j.Col, Field: "joint[" + j.Name + "]@type",
+				Msg: fmt.Sprintf("unknown joint kind %v", j.Kind)}
+		default:
+			continue
+		}
+		refuse.Msg += fmt.Sprintf(" (joint %q lies on the chain from %q to %q)", j.Name, base, tip)
+		return nil, &refuse
 	}
 
 	c := &Chain{Robot: u.Name, BaseLink: base, TipLink: tip}

@@ -392,3 +392,22 @@ func BenchmarkDemoArmForwardJacobian(b *testing.B) {
 		ws.PointJacobian(jac, pTip)
 	}
 }
+
+// TestChainRefusesUnsupportedJointsInHandBuiltURDF: a URDF value made in
+// code (no parser positions) still cannot smuggle a floating, planar or
+// mimic joint into a chain.
+func TestChainRefusesUnsupportedJointsInHandBuiltURDF(t *testing.T) {
+	for _, bad := range []URDFJoint{
+		{Name: "j", Kind: Floating, Parent: "a", Child: "b", Origin: Identity()},
+		{Name: "j", Kind: Planar, Parent: "a", Child: "b", Origin: Identity(), Axis: [3]float64{0, 0, 1}},
+		{Name: "j", Kind: Revolute, Parent: "a", Child: "b", Origin: Identity(), Axis: [3]float64{0, 0, 1}, Lower: -1, Upper: 1, VelocityLimit: 1, Mimic: "k"},
+		{Name: "j", Kind: JointKind(42), Parent: "a", Child: "b", Origin: Identity()},
+	} {
+		u := &URDF{File: "code", Links: []URDFLink{{Name: "a"}, {Name: "b"}}, Joints: []URDFJoint{bad}}
+		_, err := u.Chain("a", "b")
+		var fe *FileError
+		if !errors.As(err, &fe) || fe.File != "code" || !strings.HasPrefix(fe.Field, "joint[j]") {
+			t.Errorf("kind %v mimic %q: Chain error %v, want a *FileError about joint[j]", bad.Kind, bad.Mimic, err)
+		}
+	}
+}

@@ -20,19 +20,24 @@ import (
 //     macro, is refused.
 //   - <link name="…">: only the name matters; its <visual>, <collision> and
 //     <inertial> children are ignored.
-//   - <joint name="…" type="…"> with type revolute, continuous, prismatic or
-//     fixed. floating and planar joints are refused: they have no single axis
-//     an arm drives. Its children: <origin xyz="…" rpy="…"/> (both default to
-//     zero), <parent link="…"/> and <child link="…"/> (both required),
-//     <axis xyz="…"/> (defaults to 1 0 0, normalised, a zero axis is refused),
-//     <limit lower="…" upper="…" velocity="…" effort="…"/> (required for
-//     revolute and prismatic joints; lower and upper default to 0 and must
-//     satisfy lower < upper; velocity is required and positive). <mimic> is
-//     refused (tautline drives every joint on its own); <dynamics>,
-//     <calibration> and <safety_controller> are ignored; anything else inside
-//     a joint is refused.
+//   - <joint name="…" type="…"> with type revolute, continuous, prismatic,
+//     fixed, floating or planar. Its children: <origin xyz="…" rpy="…"/>
+//     (both default to zero), <parent link="…"/> and <child link="…"/> (both
+//     required), <axis xyz="…"/> (defaults to 1 0 0, normalised, a zero axis
+//     is refused), <limit lower="…" upper="…" velocity="…" effort="…"/>
+//     (required for revolute and prismatic joints; lower and upper default
+//     to 0 and must satisfy lower < upper; velocity is required and
+//     positive), <mimic joint="…"/>; <dynamics>, <calibration> and
+//     <safety_controller> are ignored; anything else inside a joint is
+//     refused.
 //   - The joints form one tree: every joint names existing links, a link has
 //     at most one parent joint, there is exactly one root link and no loop.
+//
+// Floating, planar and mimic joints are valid URDF that tautline cannot
+// drive (a floating or planar joint has no single axis; a mimic joint moves
+// with another instead of on its own). They are kept in the tree so that,
+// say, a gripper on a side branch does not spoil the file, and Chain refuses
+// them with their position if they lie on the requested chain.
 //
 // Every problem is reported as a *FileError naming the file, the line and
 // column, and the element or attribute, e.g. `joint[j2]/limit@velocity`.
@@ -69,9 +74,16 @@ type URDFJoint struct {
 	// gives none (possible for continuous and fixed joints only).
 	VelocityLimit float64
 
+	// Mimic names the joint this one follows (<mimic joint="…"/>), or is
+	// empty. Chain refuses a mimic joint on its path.
+	Mimic string
+
 	Line, Col int // position of the <joint> element in the file
 
 	parentAt, childAt xmlPos // positions of the <parent> and <child> elements
+	// unsupported, if set, is why Chain must refuse this joint (floating,
+	// planar or mimic), positioned at the element that says so.
+	unsupported *FileError
 }
 
 // urdfParser walks the XML tokens, keeping positions for messages.
@@ -221,8 +233,11 @@ func (p *urdfParser) joint(el xmlElem) error {
 	case typ == "fixed":
 		j.Kind = Fixed
 	case typ == "floating", typ == "planar":
-		p.errAttr(el, "type", field+"@type", "type %q is not supported: an arm joint has one axis; tautline reads revolute, continuous, prismatic and fixed joints", typ)
-		good = false
+		j.Kind = Floating
+		if typ == "planar" {
+			j.Kind = Planar
+		}
+		j.unsupported = p.newErr(p.attrPos(el, "type"), field+"@type", "type %q is not supported on an arm: an arm joint moves along or about one axis; tautline drives revolute, continuous and prismatic joints", typ)
 	default:
 		p.errAttr(el, "type", field+"@type", "unknown joint type %q: tautline reads revolute, continuous, prismatic and fixed joints", typ)
 		good = false
@@ -308,8 +323,16 @@ func (p *urdfParser) joint(el xmlElem) error {
 				good = good && limitNumbersOK
 			}
 		case c.name.Local == "mimic":
-			p.errAt(c.at, cf, "mimic joints are not supported: tautline drives every movable joint on its own; model joint %q as an independent or a fixed joint", name)
-			good = false
+			mimicked, has := attr(c, "joint")
+			if !has || mimicked == "" {
+				p.errAttr(c, "joint", cf+"@joint", "a <mimic> needs a non-empty joint attribute")
+				good = false
+				break
+			}
+			j.Mimic = mimicked
+			if j.unsupported == nil {
+				j.unsupported = p.newErr(c.at, cf, "mimic joints are not supported: tautline drives every movable joint on its own; model joint %q as an independent or a fixed joint", name)
+			}
 		case c.name.Local == "dynamics", c.name.Local == "calibration", c.name.Local == "safety_controller":
 			// Harmless for kinematics.
 		default:

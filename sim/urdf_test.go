@@ -105,38 +105,43 @@ func TestMalformedURDF(t *testing.T) {
 		field string // FileError.Field, exactly
 		at    string // text that must start at line:column ("" if no column)
 		msg   string // a phrase the message must contain
+		// chain, if set, marks valid URDF that tautline cannot drive: the
+		// file parses, the chain from "base" to "upper" works, and the
+		// chain from "base" to this link is refused with the error.
+		chain string
 	}{
-		{"bad_xml.urdf", "", "", "not well-formed XML"},
-		{"bad_encoding.urdf", "", "<?xml", "save it as UTF-8"},
-		{"bad_root.urdf", "model", "<model", "root element"},
-		{"bad_empty.urdf", "", "", "no <robot> element"},
-		{"bad_mimic.urdf", "joint[j2]/mimic", "<mimic", "mimic joints are not supported"},
-		{"bad_floating.urdf", "joint[j2]@type", "type=", `"floating" is not supported`},
-		{"bad_planar.urdf", "joint[j2]@type", "type=", `"planar" is not supported`},
-		{"bad_type.urdf", "joint[j2]@type", "type=", `unknown joint type "ball"`},
-		{"bad_no_type.urdf", "joint[j2]@type", "<joint", "needs a type"},
-		{"bad_revolute_no_limit.urdf", "joint[j2]/limit", "<joint", "revolute joint needs a <limit"},
-		{"bad_prismatic_no_limit.urdf", "joint[j1]/limit", "<joint", "prismatic joint needs a <limit"},
-		{"bad_number.urdf", "joint[j2]/origin@xyz", "xyz=", `"abc"`},
-		{"bad_count.urdf", "joint[j2]/origin@rpy", "rpy=", "has 2 values"},
-		{"bad_nan.urdf", "joint[j2]/limit@upper", "upper=", "not a finite number"},
-		{"bad_zero_axis.urdf", "joint[j2]/axis@xyz", "xyz=", "axis is zero"},
-		{"bad_limit_order.urdf", "joint[j2]/limit@lower", "lower=", "not below upper"},
-		{"bad_velocity.urdf", "joint[j2]/limit@velocity", "<limit", "needs a velocity"},
-		{"bad_missing_link.urdf", "joint[j2]/child@link", "<child", `no link named "nowhere"`},
-		{"bad_two_parents.urdf", "joint[j3]/child@link", "<child", "already has parent joint"},
-		{"bad_loop.urdf", "joint[j3]/child@link", "<child", "loop"},
-		{"bad_self_parent.urdf", "joint[j3]/child@link", "<child", "its own parent"},
-		{"bad_dup_link.urdf", "link[upper]", "<link", "defined twice"},
-		{"bad_dup_joint.urdf", "joint[j2]", "<joint", "defined twice"},
-		{"bad_link_no_name.urdf", "link", "<link", "needs a non-empty name"},
-		{"bad_no_parent.urdf", "joint[j2]/parent", "<joint", "needs a <parent"},
-		{"bad_no_link_attr.urdf", "joint[j2]/child@link", "<child", "needs a non-empty link"},
-		{"bad_two_roots.urdf", "link[stray]", "<link", "2 root links"},
-		{"bad_dup_origin.urdf", "joint[j2]/origin", "<origin", "at most one <origin>"},
-		{"bad_joint_child_element.urdf", "joint[j2]/axsi", "<axsi", "unknown element <axsi>"},
-		{"bad_top_element.urdf", "jiont", "<jiont", "unknown element <jiont>"},
-		{"bad_xacro.urdf", "xacro:include", "<xacro:include", "expand xacro"},
+		{"bad_xml.urdf", "", "", "not well-formed XML", ""},
+		{"bad_encoding.urdf", "", "<?xml", "save it as UTF-8", ""},
+		{"bad_root.urdf", "model", "<model", "root element", ""},
+		{"bad_empty.urdf", "", "", "no <robot> element", ""},
+		{"bad_mimic.urdf", "joint[j2]/mimic", "<mimic", "mimic joints are not supported", "lower"},
+		{"bad_mimic_no_joint.urdf", "joint[j2]/mimic@joint", "<mimic", "needs a non-empty joint", ""},
+		{"bad_floating.urdf", "joint[j2]@type", "type=", `"floating" is not supported`, "lower"},
+		{"bad_planar.urdf", "joint[j2]@type", "type=", `"planar" is not supported`, "lower"},
+		{"bad_type.urdf", "joint[j2]@type", "type=", `unknown joint type "ball"`, ""},
+		{"bad_no_type.urdf", "joint[j2]@type", "<joint", "needs a type", ""},
+		{"bad_revolute_no_limit.urdf", "joint[j2]/limit", "<joint", "revolute joint needs a <limit", ""},
+		{"bad_prismatic_no_limit.urdf", "joint[j1]/limit", "<joint", "prismatic joint needs a <limit", ""},
+		{"bad_number.urdf", "joint[j2]/origin@xyz", "xyz=", `"abc"`, ""},
+		{"bad_count.urdf", "joint[j2]/origin@rpy", "rpy=", "has 2 values", ""},
+		{"bad_nan.urdf", "joint[j2]/limit@upper", "upper=", "not a finite number", ""},
+		{"bad_zero_axis.urdf", "joint[j2]/axis@xyz", "xyz=", "axis is zero", ""},
+		{"bad_limit_order.urdf", "joint[j2]/limit@lower", "lower=", "not below upper", ""},
+		{"bad_velocity.urdf", "joint[j2]/limit@velocity", "<limit", "needs a velocity", ""},
+		{"bad_missing_link.urdf", "joint[j2]/child@link", "<child", `no link named "nowhere"`, ""},
+		{"bad_two_parents.urdf", "joint[j3]/child@link", "<child", "already has parent joint", ""},
+		{"bad_loop.urdf", "joint[j3]/child@link", "<child", "loop", ""},
+		{"bad_self_parent.urdf", "joint[j3]/child@link", "<child", "its own parent", ""},
+		{"bad_dup_link.urdf", "link[upper]", "<link", "defined twice", ""},
+		{"bad_dup_joint.urdf", "joint[j2]", "<joint", "defined twice", ""},
+		{"bad_link_no_name.urdf", "link", "<link", "needs a non-empty name", ""},
+		{"bad_no_parent.urdf", "joint[j2]/parent", "<joint", "needs a <parent", ""},
+		{"bad_no_link_attr.urdf", "joint[j2]/child@link", "<child", "needs a non-empty link", ""},
+		{"bad_two_roots.urdf", "link[stray]", "<link", "2 root links", ""},
+		{"bad_dup_origin.urdf", "joint[j2]/origin", "<origin", "at most one <origin>", ""},
+		{"bad_joint_child_element.urdf", "joint[j2]/axsi", "<axsi", "unknown element <axsi>", ""},
+		{"bad_top_element.urdf", "jiont", "<jiont", "unknown element <jiont>", ""},
+		{"bad_xacro.urdf", "xacro:include", "<xacro:include", "expand xacro", ""},
 	}
 	seen := map[string]bool{}
 	for _, tc := range cases {
@@ -145,12 +150,23 @@ func TestMalformedURDF(t *testing.T) {
 			path := filepath.Join("testdata", "urdf", tc.file)
 			data := readTestFile(t, path)
 			wantLine := markedLine(t, data)
-			_, err := ParseURDF(path, data)
+			u, err := ParseURDF(path, data)
+			if tc.chain != "" {
+				if err != nil {
+					t.Fatalf("ParseURDF refused valid URDF: %v", err)
+				}
+				if _, err := u.Chain("base", "upper"); err != nil {
+					t.Errorf("the chain that avoids the unsupported joint was refused: %v", err)
+				}
+				_, err = u.Chain("base", tc.chain)
+			}
 			if err == nil {
-				t.Fatal("ParseURDF accepted a malformed file")
+				t.Fatal("a malformed or unsupported file was accepted")
 			}
 			var errs FileErrors
-			if !errors.As(err, &errs) {
+			if fe, ok := err.(*FileError); ok && tc.chain != "" {
+				errs = FileErrors{fe} // Chain returns a single *FileError
+			} else if !errors.As(err, &errs) {
 				t.Fatalf("error %T is not a FileErrors: %v", err, err)
 			}
 			if len(errs) != 1 {
@@ -232,7 +248,7 @@ func TestURDFReportsEveryProblem(t *testing.T) {
 	const doc = `<robot name="r">
   <link name="a"/><link name="b"/><link name="c"/>
   <joint name="j1" type="revolute"><parent link="a"/><child link="b"/></joint>
-  <joint name="j2" type="planar"><parent link="b"/><child link="c"/></joint>
+  <joint name="j2" type="ball"><parent link="b"/><child link="c"/></joint>
 </robot>`
 	_, err := ParseURDF("two.urdf", []byte(doc))
 	var errs FileErrors

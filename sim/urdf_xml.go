@@ -172,18 +172,29 @@ func (p *urdfParser) rawName(el xmlElem) string {
 
 // errAt records an error at a position.
 func (p *urdfParser) errAt(at xmlPos, field, format string, args ...any) {
-	p.errs = append(p.errs, &FileError{File: p.file, Line: at.line, Col: at.col, Field: field, Msg: fmt.Sprintf(format, args...)})
+	p.errs = append(p.errs, p.newErr(at, field, format, args...))
+}
+
+// newErr makes an error at a position without recording it.
+func (p *urdfParser) newErr(at xmlPos, field, format string, args ...any) *FileError {
+	return &FileError{File: p.file, Line: at.line, Col: at.col, Field: field, Msg: fmt.Sprintf(format, args...)}
 }
 
 // errAttr records an error about attribute name of el, at the attribute if
 // it is present in the start tag and at the element otherwise.
 func (p *urdfParser) errAttr(el xmlElem, name, field, format string, args ...any) {
+	p.errAt(p.attrPos(el, name), field, format, args...)
+}
+
+// attrPos is the position of attribute name in el's start tag, or of the
+// element if the attribute is absent.
+func (p *urdfParser) attrPos(el xmlElem, name string) xmlPos {
 	at := el.at
 	if off := attrOffset(p.data[el.at.off:el.end], name); off >= 0 {
 		at.off = el.at.off + int64(off)
 		at.line, at.col = lineCol(p.data, at.off)
 	}
-	p.errAt(at, field, format, args...)
+	return at
 }
 
 // attrOffset finds `name =` in a start tag, skipping matches inside quoted
