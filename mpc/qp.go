@@ -737,14 +737,15 @@ func (s *QPSolver) mostViolated(z []float64, qp *QP) (int32, error) {
 			zmax = math.Max(zmax, math.Abs(v))
 		}
 		for i := range s.m {
-			if s.rowSide[i] != QPInactive || s.rowNorm[i] == 0 {
+			lo, hi := qp.Lo[i], qp.Hi[i]
+			if s.rowSide[i] != QPInactive || s.rowNorm[i] == 0 || (math.IsInf(lo, -1) && math.IsInf(hi, 1)) {
 				continue
 			}
 			t := s.rowDot(qp, i, z)
 			if math.IsNaN(t) {
 				return -1, ErrQPNotFinite
 			}
-			consider(i, t, s.rowAbs[i]*zmax, qp.Lo[i], qp.Hi[i], s.rowNorm[i])
+			consider(i, t, s.rowAbs[i]*zmax, lo, hi, s.rowNorm[i])
 		}
 	}
 	if qp.LB != nil || qp.UB != nil {
