@@ -56,7 +56,9 @@ type URDFLink struct {
 
 // URDFJoint is one <joint> element of the subset.
 type URDFJoint struct {
-	Name   string
+	Name string
+	// Kind is the joint type. Floating and Planar joints are kept so the
+	// tree stays whole; Chain refuses them on its path.
 	Kind   JointKind
 	Parent string // parent link name
 	Child  string // child link name
@@ -64,14 +66,14 @@ type URDFJoint struct {
 	// Origin maps the joint frame (at zero joint position) to the parent
 	// link's frame: <origin xyz rpy>.
 	Origin Pose
-	// Axis is the joint axis in the joint frame, unit length. Meaningless for
-	// fixed joints.
+	// Axis is the joint axis in the joint frame, unit length (the plane's
+	// normal for a planar joint). Meaningless for fixed and floating joints.
 	Axis [3]float64
 	// Lower and Upper are the position limits: rad for revolute joints, m for
-	// prismatic joints, −Inf and +Inf for continuous and fixed joints.
+	// prismatic joints, −Inf and +Inf for the other kinds.
 	Lower, Upper float64
 	// VelocityLimit is the largest speed, rad/s or m/s; +Inf when the file
-	// gives none (possible for continuous and fixed joints only).
+	// gives none (never for revolute and prismatic joints).
 	VelocityLimit float64
 
 	// Mimic names the joint this one follows (<mimic joint="…"/>), or is
