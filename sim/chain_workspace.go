@@ -29,7 +29,8 @@ func (c *Chain) NewWorkspace() *ChainWorkspace {
 // Forward computes every joint frame and the tip pose for joint vector q
 // (rad or m, base to tip, len NumJoints) with the chain's base link placed
 // at base in the world, stores them in ws and returns the tip pose (tip link
-// frame → world). Joint limits are not checked. It allocates nothing.
+// frame → world). Joint limits are not checked; a NaN in q gives NaN
+// frames. It allocates nothing.
 func (c *Chain) Forward(ws *ChainWorkspace, base Pose, q []float64) Pose {
 	if ws.chain != c {
 		panic("sim: Chain.Forward: workspace belongs to another chain")
