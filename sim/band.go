@@ -40,6 +40,18 @@ func (b *bandMatrix) add(i, j int, v float64) {
 // p == q.
 func (b *bandMatrix) addBlock(p, q int, h *[9]float64, sign float64) {
 	w := b.kd + 1
+	if p != q {
+		// Rows 3p+r, columns 3q…3q+2 sit at offsets 3q−(3p+r)+kd … +2.
+		for r := range 3 {
+			i := 3*p + r
+			o := i*w + 3*q - i + b.kd
+			row := b.data[o : o+3 : o+3]
+			row[0] += sign * h[3*r]
+			row[1] += sign * h[3*r+1]
+			row[2] += sign * h[3*r+2]
+		}
+		return
+	}
 	for r := range 3 {
 		i := 3*p + r
 		row := b.data[i*w : (i+1)*w]
@@ -125,11 +137,7 @@ func (b *bandMatrix) solve(x []float64, k int) {
 			if l == 0 {
 				continue
 			}
-			xp := x[p*k : (p+1)*k]
-			xp = xp[:len(xi)]
-			for c, v := range xp {
-				xi[c] -= l * v
-			}
+			axpyNeg(xi, l, x[p*k:(p+1)*k])
 		}
 		d := b.invDiag[i]
 		for c := range xi {
@@ -149,11 +157,24 @@ func (b *bandMatrix) solve(x []float64, k int) {
 			if l == 0 {
 				continue
 			}
-			xp := x[p*k : (p+1)*k]
-			xp = xp[:len(xi)]
-			for c, v := range xi {
-				xp[c] -= l * v
-			}
+			axpyNeg(x[p*k:(p+1)*k], l, xi)
 		}
+	}
+}
+
+// axpyNeg does dst −= a·src (equal lengths), four at a time.
+func axpyNeg(dst []float64, a float64, src []float64) {
+	src = src[:len(dst)]
+	c := 0
+	for ; c+4 <= len(dst); c += 4 {
+		d := dst[c : c+4 : c+4]
+		s := src[c : c+4 : c+4]
+		d[0] -= a * s[0]
+		d[1] -= a * s[1]
+		d[2] -= a * s[2]
+		d[3] -= a * s[3]
+	}
+	for ; c < len(dst); c++ {
+		dst[c] -= a * src[c]
 	}
 }

@@ -59,7 +59,8 @@ func unitOf(d [3]float64) ([3]float64, float64) {
 	if l == 0 {
 		return [3]float64{0, 0, 1}, 0
 	}
-	return [3]float64{d[0] / l, d[1] / l, d[2] / l}, l
+	inv := 1 / l
+	return [3]float64{d[0] * inv, d[1] * inv, d[2] * inv}, l
 }
 
 func (m *Model) nodeDiff(x []float64, a, b int) [3]float64 {

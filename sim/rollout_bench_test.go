@@ -95,11 +95,13 @@ func BenchmarkStep(b *testing.B) {
 			ws := m.NewWorkspace()
 			xNext := make([]float64, m.Dim())
 			b.ReportAllocs()
+			cpu0 := benchCPUSeconds()
 			for b.Loop() {
 				if err := m.Step(ws, xNext, xCur, xPrev, anchors); err != nil {
 					b.Fatal(err)
 				}
 			}
+			b.ReportMetric(1e9*(benchCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
 			b.ReportMetric(float64(ws.NewtonIters()), "newton/step")
 			b.ReportMetric(float64(m.HalfBandwidth()), "halfband")
 		})
@@ -121,11 +123,13 @@ func BenchmarkStepProjectedOnly(b *testing.B) {
 			ws := m.NewWorkspace()
 			xNext := make([]float64, m.Dim())
 			b.ReportAllocs()
+			cpu0 := benchCPUSeconds()
 			for b.Loop() {
 				if err := m.Step(ws, xNext, xCur, xPrev, anchors); err != nil {
 					b.Fatal(err)
 				}
 			}
+			b.ReportMetric(1e9*(benchCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
 			b.ReportMetric(float64(ws.NewtonIters()), "newton/step")
 		})
 	}
@@ -141,12 +145,14 @@ func BenchmarkStepSensitivityMatrices(b *testing.B) {
 			dCur, dPrev := mat.NewDense(m.Dim(), m.Dim(), nil), mat.NewDense(m.Dim(), m.Dim(), nil)
 			dAn := mat.NewDense(m.Dim(), 3*m.NumAnchors(), nil)
 			b.ReportAllocs()
+			cpu0 := benchCPUSeconds()
 			for b.Loop() {
 				if err := m.Step(ws, xNext, xCur, xPrev, anchors); err != nil {
 					b.Fatal(err)
 				}
 				ws.SensitivityMatrices(dCur, dPrev, dAn)
 			}
+			b.ReportMetric(1e9*(benchCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
 		})
 	}
 }
@@ -175,12 +181,14 @@ func BenchmarkRollout20Tangent24(b *testing.B) {
 				}
 			}
 			b.ReportAllocs()
+			cpu0 := benchCPUSeconds()
 			for b.Loop() {
 				if err := r.Run(xCur, xPrev, ans); err != nil {
 					b.Fatal(err)
 				}
 				r.Tangent(dX, nil, nil, dA)
 			}
+			b.ReportMetric(1e9*(benchCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
 		})
 	}
 }
@@ -195,11 +203,13 @@ func BenchmarkRollout20(b *testing.B) {
 			ans := benchAnchors(anchors, steps)
 			r := m.NewRollout(steps)
 			b.ReportAllocs()
+			cpu0 := benchCPUSeconds()
 			for b.Loop() {
 				if err := r.Run(xCur, xPrev, ans); err != nil {
 					b.Fatal(err)
 				}
 			}
+			b.ReportMetric(1e9*(benchCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
 		})
 	}
 }
