@@ -5,8 +5,7 @@ import (
 	"math"
 
 	"gonum.org/v1/gonum/blas"
-	"gonum.org/v1/gonum/blas/blas64"
-	"gonum.org/v1/gonum/lapack/lapack64"
+	gonumlapack "gonum.org/v1/gonum/lapack/gonum"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -209,15 +208,16 @@ func (s *QPSolver) Factorize(h *mat.SymDense) error {
 			jm[i*n+k] = v
 		}
 	}
-	// H = L Lᵀ, then L⁻¹ in place (LAPACK dpotrf and dtrtri through gonum's
-	// native implementation, which allocates nothing). Row k of L⁻¹ is
-	// column k of J = L⁻ᵀ, which is how j0 is laid out.
-	if _, ok := lapack64.Potrf(blas64.Symmetric{N: n, Stride: n, Data: jm, Uplo: blas.Lower}); !ok {
+	// H = L Lᵀ, then L⁻¹ in place, with the unblocked LAPACK routines dpotf2
+	// and dtrti2 of gonum's native implementation: they allocate nothing and,
+	// unlike the blocked ones (whose dgemm goes parallel for n > 256), never
+	// start a goroutine, as the pure core requires. Row k of L⁻¹ is column k
+	// of J = L⁻ᵀ, which is how j0 is laid out.
+	var impl gonumlapack.Implementation
+	if !impl.Dpotf2(blas.Lower, n, jm, n) {
 		return ErrQPNotConvex
 	}
-	if !lapack64.Trtri(blas64.Triangular{N: n, Stride: n, Data: jm, Uplo: blas.Lower, Diag: blas.NonUnit}) {
-		return ErrQPNotConvex
-	}
+	impl.Dtrti2(blas.Lower, blas.NonUnit, n, jm, n) // the diagonal is positive
 	s.factorized = true
 	return nil
 }
