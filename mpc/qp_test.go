@@ -11,7 +11,8 @@ import (
 
 // randomQP builds a strictly convex QP that is feasible by construction:
 // every constraint is built around a random point zf, some rows are
-// equalities (Lo = Hi = Cᵢzf), some are tight at zf on one side, and the
+// equalities (Lo = Hi = Cᵢzf), some variables fixed (LB = UB), some rows
+// and bounds are tight at zf on one side, and the
 // gradient pulls the unconstrained minimum far outside so that many
 // constraints are active at the optimum.
 func randomQP(rng *rand.Rand, n, m int) *QP {
@@ -63,10 +64,18 @@ func randomQP(rng *rand.Rand, n, m int) *QP {
 			qp.Lo[i], qp.Hi[i] = t-2*rng.Float64(), t+2*rng.Float64()
 		}
 	}
+	fixed := 0
 	for j := range n {
-		switch rng.IntN(6) {
+		switch rng.IntN(7) {
 		case 0:
 			qp.LB[j], qp.UB[j] = math.Inf(-1), math.Inf(1)
+		case 6:
+			if fixed+equalities < n/3 {
+				fixed++
+				qp.LB[j], qp.UB[j] = zf[j], zf[j] // a fixed variable
+				break
+			}
+			fallthrough
 		case 1:
 			qp.LB[j], qp.UB[j] = zf[j], zf[j]+rng.Float64()
 		default:
