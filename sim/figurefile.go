@@ -2,6 +2,7 @@ package sim
 
 import (
 	"bytes"
+	"errors"
 	"encoding/json"
 	"math"
 	"sort"
@@ -38,7 +39,11 @@ const FigureFormat = "tautline.figure/1"
 func ParseFigure(file string, data []byte) (*Figure, error) {
 	d, err := newJSONDoc(file, data)
 	if err != nil {
-		return nil, FileErrors{err.(*FileError)}
+		var fe *FileError
+		if !errors.As(err, &fe) {
+			fe = &FileError{File: file, Msg: err.Error()}
+		}
+		return nil, FileErrors{fe}
 	}
 	fig, errs := parseFigureIn(d, "")
 	if len(errs) > 0 {
