@@ -2,8 +2,8 @@ package sim
 
 import (
 	"bytes"
-	"errors"
 	"encoding/json"
+	"errors"
 	"math"
 	"sort"
 	"strconv"
