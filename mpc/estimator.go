@@ -149,6 +149,7 @@ type EstimatorReport struct {
 	MarkersUsed         int              // markers that passed the gate and updated the state
 	Rejected            []RejectedMarker // markers the gate rejected and the update did not use, in observation order
 	GateOverruled       bool             // most markers failed the gate, so all were used (see the estimator notes)
+	UsedPrepared        bool             // the covariance came from Prepare
 	TicksWithoutMarkers int              // consecutive observations (this one included) with no accepted marker
 	Stale               bool             // TicksWithoutMarkers ≥ StaleAfterTicks
 }
@@ -233,9 +234,13 @@ var (
 // time the next command will apply, with joints from the path through the
 // measured joints at the filter's time and every recorded command after it;
 // beyond the last recorded command the joints hold its value. A command
-// recorded with apply time τ means "the arm is at these joints at τ"; record
-// each command once it is sent, and, if the joints for the apply time itself
-// are known (the nominal plus the correction in force), record them too.
+// recorded with apply time τ means "the arm is told to be at these joints
+// at τ". Arms lag their commands, so every command point of this path is
+// shifted by the tracking offset last seen: the measured joints at the
+// filter's time minus the commands interpolated at that time (zero when the
+// recorded commands do not span it). Record each command once it is sent,
+// and, if the joints for the apply time itself are known (the nominal plus
+// the correction in force), record them too.
 //
 // # Per tick
 //
@@ -248,6 +253,9 @@ var (
 //     time: the planner's initial state.
 //  3. Plan and guard, then RecordCommand the joints actually sent for that
 //     apply time (it replaces the guess).
+//  4. Optionally, while waiting for the next frame, Prepare for its
+//     capture time: the covariance propagation then happens off the path
+//     from observation to command.
 //
 // # Failures
 //
@@ -285,6 +293,13 @@ type Estimator struct {
 	noMarkers int
 
 	cmds commandRing
+
+	// Prepared covariance (see Prepare).
+	prepared    bool
+	prepFrom    int64 // filter grid index it was prepared from
+	prepTo      int64 // grid index it was prepared for
+	pMean, pCov []float64
+	bias        []float64 // the arm's tracking offset (joints), see pathJoints
 
 	// Scratch.
 	wMean, wCov []float64 // working copies, committed on success
@@ -348,6 +363,9 @@ func NewEstimator(p Process, m MarkerSet, s EstimatorSettings) (*Estimator, erro
 		cmds:       newCommandRing(s.CommandHistory, nj),
 		wMean:      make([]float64, n),
 		wCov:       make([]float64, n*n),
+		pMean:      make([]float64, n),
+		pCov:       make([]float64, n*n),
+		bias:       make([]float64, nj),
 		stepNext:   make([]float64, d),
 		dCur:       mat.NewDense(d, d, nil),
 		dPrev:      mat.NewDense(d, d, nil),
@@ -377,6 +395,7 @@ func NewEstimator(p Process, m MarkerSet, s EstimatorSettings) (*Estimator, erro
 // initialises the filter again.
 func (e *Estimator) Reset() {
 	e.init = false
+	e.prepared = false
 	e.k = 0
 	e.noMarkers = 0
 	e.cmds.clear()

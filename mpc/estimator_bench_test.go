@@ -6,6 +6,7 @@ import (
 	"math/rand/v2"
 	"slices"
 	"testing"
+	"time"
 
 	"gonum.org/v1/gonum/mat"
 
@@ -79,8 +80,11 @@ func netFigure(tb testing.TB, rows, cols int, h float64) (*FigureProcess, Marker
 type tickFixture struct {
 	est    *Estimator
 	joints [][]float64
+	states [][]float64 // the real positions per tick
 	obs    [][]MarkerObs
 	h      float64
+
+	withPrepare bool // tick calls Prepare for the next frame
 }
 
 func newTickFixture(tb testing.TB, proc Process, ms MarkerSet, joint func(dst []float64, tS float64), ticks int) *tickFixture {
@@ -116,6 +120,7 @@ func newTickFixture(tb testing.TB, proc Process, ms MarkerSet, joint func(dst []
 			obs = append(obs, MarkerObs{Marker: m, PosTrackerM: fromWorld.Apply(p)})
 		}
 		f.joints = append(f.joints, slices.Clone(q))
+		f.states = append(f.states, slices.Clone(cur))
 		f.obs = append(f.obs, obs)
 	}
 	est, err := NewEstimator(proc, ms, EstimatorSettings{})
@@ -128,8 +133,16 @@ func newTickFixture(tb testing.TB, proc Process, ms MarkerSet, joint func(dst []
 
 // tick runs one server tick k ≥ 1 of the fixture: observe frame k, record
 // the command for k+3 and predict to it (a 20 ms frame delay plus one tick
-// at 10 ms).
+// at 10 ms) — the feedback phase — and then, if prepare is set, Prepare
+// for frame k+1.
 func (f *tickFixture) tick(k int, rep *EstimatorReport, xCur, xPrev []float64) error {
+	if err := f.feedback(k, rep, xCur, xPrev); err != nil {
+		return err
+	}
+	return f.prepare(k)
+}
+
+func (f *tickFixture) feedback(k int, rep *EstimatorReport, xCur, xPrev []float64) error {
 	if err := f.est.Observe(float64(k)*f.h, f.joints[k], f.obs[k], rep); err != nil {
 		return err
 	}
@@ -137,6 +150,13 @@ func (f *tickFixture) tick(k int, rep *EstimatorReport, xCur, xPrev []float64) e
 		return err
 	}
 	return f.est.PredictTo(xCur, xPrev, float64(k+3)*f.h)
+}
+
+func (f *tickFixture) prepare(k int) error {
+	if !f.withPrepare {
+		return nil
+	}
+	return f.est.Prepare(float64(k+1) * f.h)
 }
 
 func demoFixture(tb testing.TB, ticks int) *tickFixture {
@@ -165,10 +185,11 @@ func netJoints(dst []float64, tS float64) {
 // 60-node net, whose 180×180 matrices are where gonum's matrix product
 // would go parallel and allocate.
 func TestEstimatorTickAllocatesNothing(t *testing.T) {
-	for _, name := range []string{"demo", "net60"} {
+	for _, name := range []string{"demo", "demo+prepare", "net60"} {
 		var f *tickFixture
-		if name == "demo" {
+		if name != "net60" {
 			f = demoFixture(t, 30)
+			f.withPrepare = name == "demo+prepare"
 		} else {
 			proc, ms := netFigure(t, 10, 6, 0.01)
 			f = newTickFixture(t, proc, ms, netJoints, 30)
@@ -194,54 +215,75 @@ func TestEstimatorTickAllocatesNothing(t *testing.T) {
 	}
 }
 
-// BenchmarkEstimatorTick measures one estimator tick (observe one frame
-// with 20 % of the markers hidden, record a command, predict 30 ms ahead)
-// for the demo cell (20 nodes, 10 markers) and invented nets of 60 and 150
-// nodes (markers on every other node). cpu-ns/op is the process's CPU time
-// per tick (it includes re-recording when b.N exceeds the 400 recorded
-// ticks, and excludes waiting for a core on a loaded machine).
+// BenchmarkEstimatorTick measures one estimator tick for the demo cell (20
+// nodes, 10 markers) and invented nets of 60 and 150 nodes (markers on
+// every other node), each frame with 20 % of the markers hidden:
+//
+//   - plain: Observe (one step with its covariance propagation, gate,
+//     update), RecordCommand, PredictTo 30 ms ahead;
+//   - prepared: the same with Prepare for the next frame after it, so the
+//     covariance propagation leaves the feedback phase.
+//
+// ns/op is the whole tick; feedback-ns/op the part from Observe to the
+// predicted state (what delays a command); cpu-ns/op and
+// feedback-cpu-ns/op the process's CPU time for the same, which excludes
+// waiting for a core on a loaded machine (cpu-ns/op includes re-recording
+// when b.N exceeds the 400 recorded ticks).
 func BenchmarkEstimatorTick(b *testing.B) {
 	for _, sz := range []struct {
 		name       string
 		rows, cols int
 	}{{"demo20", 0, 0}, {"net60", 10, 6}, {"net150", 15, 10}} {
-		b.Run(sz.name, func(b *testing.B) {
-			n := min(b.N, 400)
-			var f *tickFixture
-			if sz.rows == 0 {
-				f = demoFixture(b, n+1)
-			} else {
-				proc, ms := netFigure(b, sz.rows, sz.cols, 0.01)
-				f = newTickFixture(b, proc, ms, netJoints, n+1)
-			}
-			var rep EstimatorReport
-			d := f.est.Dim()
-			xCur, xPrev := make([]float64, d), make([]float64, d)
-			if err := f.tick(0, &rep, xCur, xPrev); err != nil {
-				b.Fatal(err)
-			}
-			b.ReportAllocs()
-			b.ResetTimer()
-			cpu0 := processCPUSeconds()
-			k := 1
-			for i := 0; i < b.N; i++ {
-				if k > n {
-					// Past the recorded run: start the recording again.
-					b.StopTimer()
-					f.est.Reset()
-					if err := f.tick(0, &rep, xCur, xPrev); err != nil {
-						b.Fatal(err)
-					}
-					k = 1
-					b.StartTimer()
+		for _, mode := range []string{"plain", "prepared"} {
+			b.Run(sz.name+"/"+mode, func(b *testing.B) {
+				n := min(b.N, 400)
+				var f *tickFixture
+				if sz.rows == 0 {
+					f = demoFixture(b, n+1)
+				} else {
+					proc, ms := netFigure(b, sz.rows, sz.cols, 0.01)
+					f = newTickFixture(b, proc, ms, netJoints, n+1)
 				}
-				if err := f.tick(k, &rep, xCur, xPrev); err != nil {
+				f.withPrepare = mode == "prepared"
+				var rep EstimatorReport
+				d := f.est.Dim()
+				xCur, xPrev := make([]float64, d), make([]float64, d)
+				if err := f.tick(0, &rep, xCur, xPrev); err != nil {
 					b.Fatal(err)
 				}
-				k++
-			}
-			b.ReportMetric(1e9*(processCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
-		})
+				b.ReportAllocs()
+				b.ResetTimer()
+				cpu0 := processCPUSeconds()
+				var feedback time.Duration
+				var feedbackCPU float64
+				k := 1
+				for i := 0; i < b.N; i++ {
+					if k > n {
+						// Past the recorded run: start the recording again.
+						b.StopTimer()
+						f.est.Reset()
+						if err := f.tick(0, &rep, xCur, xPrev); err != nil {
+							b.Fatal(err)
+						}
+						k = 1
+						b.StartTimer()
+					}
+					start, startCPU := time.Now(), processCPUSeconds()
+					if err := f.feedback(k, &rep, xCur, xPrev); err != nil {
+						b.Fatal(err)
+					}
+					feedback += time.Since(start)
+					feedbackCPU += processCPUSeconds() - startCPU
+					if err := f.prepare(k); err != nil {
+						b.Fatal(err)
+					}
+					k++
+				}
+				b.ReportMetric(float64(feedback.Nanoseconds())/float64(b.N), "feedback-ns/op")
+				b.ReportMetric(1e9*(processCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
+				b.ReportMetric(1e9*feedbackCPU/float64(b.N), "feedback-cpu-ns/op")
+			})
+		}
 	}
 }
 

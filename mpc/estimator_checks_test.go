@@ -299,7 +299,7 @@ func TestPathJointsInterpolatesCommands(t *testing.T) {
 		if c.end {
 			end = []float64{10}
 		}
-		e.pathJoints(dst, c.t, 0.99, []float64{0}, 1.015, end)
+		e.pathJoints(dst, c.t, 0.99, []float64{0}, 1.015, end, nil)
 		if math.Abs(dst[0]-c.want) > 1e-12 {
 			t.Errorf("t %g end %v: %g, want %g", c.t, c.end, dst[0], c.want)
 		}
@@ -326,5 +326,33 @@ func TestEstimatorLongGapsAreBounded(t *testing.T) {
 	}
 	if !rep.Initialised || rep.StepsPredicted != 0 || est.TimeS() != far {
 		t.Fatalf("after a gap of %d steps: report %+v, time %g", DefaultMaxPredictSteps+1, rep, est.TimeS())
+	}
+}
+
+// TestTrackingOffsetShiftsCommands checks the tracking offset and the
+// biased path by hand: commands (1.00 s, 1) and (1.02 s, 3), the arm
+// measured at 0.9 at the filter's time 1.00 s, so the offset is −0.1 and
+// the path runs from (1.00, 0.9) to (1.02, 2.9) and holds 2.9.
+func TestTrackingOffsetShiftsCommands(t *testing.T) {
+	e := &Estimator{nj: 1, cmds: newCommandRing(4, 1), init: true, t0: 1.00, h: 0.01, joints: []float64{0.9}}
+	for _, c := range []struct{ t, q float64 }{{1.00, 1}, {1.02, 3}} {
+		if err := e.RecordCommand(c.t, []float64{c.q}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	bias := []float64{0}
+	if !e.trackingOffsetTo(bias) || math.Abs(bias[0]+0.1) > 1e-15 {
+		t.Fatalf("tracking offset %v, want −0.1", bias)
+	}
+	dst := []float64{0}
+	for _, c := range []struct{ t, want float64 }{{1.00, 0.9}, {1.01, 1.9}, {1.02, 2.9}, {1.05, 2.9}} {
+		e.pathJoints(dst, c.t, 1.00, e.joints, 0, nil, bias)
+		if math.Abs(dst[0]-c.want) > 1e-12 {
+			t.Errorf("t %g: %g, want %g", c.t, dst[0], c.want)
+		}
+	}
+	e.k = 5 // filter time 1.05 s: past the last command, no offset known
+	if e.trackingOffsetTo(bias) || bias[0] != 0 {
+		t.Fatalf("offset past the commands: %v", bias)
 	}
 }

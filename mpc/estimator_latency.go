@@ -85,12 +85,24 @@ func (e *Estimator) RecordCommand(applyTimeS float64, joints []float64) error {
 // through (startS, start), every recorded command with apply time in
 // (startS, endS), and, if end is not nil, (endS, end). Before startS it
 // returns start; after the last point it holds the last point's joints.
-func (e *Estimator) pathJoints(dst []float64, t, startS float64, start []float64, endS float64, end []float64) {
+// If bias is not nil it is added to every command point (not to start or
+// end).
+func (e *Estimator) pathJoints(dst []float64, t, startS float64, start []float64, endS float64, end, bias []float64) {
 	prevT, prevQ := startS, start
 	if t <= startS {
 		copy(dst, start)
 		return
 	}
+	// biasW is the weight of bias at t: it grows from 0 at start to 1 at
+	// the first command and stays 1 on every later command point.
+	biasW := 0.0
+	defer func() {
+		if bias != nil && biasW != 0 {
+			for i := range dst {
+				dst[i] += biasW * bias[i]
+			}
+		}
+	}()
 	for i := 0; i < e.cmds.count; i++ {
 		ct, cq := e.cmds.at(i)
 		if ct <= startS {
@@ -101,15 +113,55 @@ func (e *Estimator) pathJoints(dst []float64, t, startS float64, start []float64
 		}
 		if ct >= t {
 			lerpJoints(dst, t, prevT, prevQ, ct, cq)
+			if prevT == startS {
+				biasW = min((t-startS)/(ct-startS), 1)
+			} else {
+				biasW = 1
+			}
 			return
 		}
 		prevT, prevQ = ct, cq
 	}
 	if end != nil {
 		lerpJoints(dst, t, prevT, prevQ, endS, end)
+		if prevT != startS {
+			biasW = max(0, 1-(t-prevT)/(endS-prevT))
+		}
 		return
 	}
 	copy(dst, prevQ)
+	if prevT != startS {
+		biasW = 1
+	}
+}
+
+// trackingOffsetTo writes the arm's tracking offset at the filter's time:
+// the measured joints there minus the commanded ones (interpolated between
+// the recorded commands around that time). It returns false, with dst
+// zero, if the recorded commands do not span the filter's time.
+func (e *Estimator) trackingOffsetTo(dst []float64) bool {
+	clear(dst)
+	tF := e.gridTime(e.k)
+	for i := 0; i+1 < e.cmds.count; i++ {
+		t0, q0 := e.cmds.at(i)
+		t1, q1 := e.cmds.at(i + 1)
+		if t0 <= tF && tF <= t1 {
+			lerpJoints(dst, tF, t0, q0, t1, q1)
+			for j := range dst {
+				dst[j] = e.joints[j] - dst[j]
+			}
+			return true
+		}
+	}
+	if e.cmds.count > 0 {
+		if t, q := e.cmds.at(e.cmds.count - 1); t == tF {
+			for j := range dst {
+				dst[j] = e.joints[j] - q[j]
+			}
+			return true
+		}
+	}
+	return false
 }
 
 // lerpJoints interpolates linearly between (t0, q0) and (t1, q1) at t,
@@ -133,8 +185,8 @@ func (e *Estimator) gridIndex(tS float64) int64 {
 // PredictTo writes the estimated positions at cue time applyTimeS (rounded
 // to the filter's grid) into xCur and one step earlier into xPrev: the
 // filtered mean advanced by the process model with the joints of the
-// recorded commands (latency compensation; see the timing model). The
-// filter itself does not change. An apply time before the filter's time or
+// recorded commands, corrected by the arm's tracking offset (latency
+// compensation; see the timing model). The filter itself does not change. An apply time before the filter's time or
 // more than MaxPredictSteps steps after it is an error, as is a step that
 // fails.
 func (e *Estimator) PredictTo(xCur, xPrev []float64, applyTimeS float64) error {
@@ -159,8 +211,9 @@ func (e *Estimator) PredictTo(xCur, xPrev []float64, applyTimeS float64) error {
 	copy(cur, e.mean[:e.d])
 	copy(prev, e.mean[e.d:])
 	tF := e.gridTime(e.k)
+	e.trackingOffsetTo(e.bias)
 	for j := e.k + 1; j <= k; j++ {
-		e.pathJoints(e.predJoints, e.gridTime(j), tF, e.joints, 0, nil)
+		e.pathJoints(e.predJoints, e.gridTime(j), tF, e.joints, 0, nil, e.bias)
 		if err := e.proc.Step(next, cur, prev, e.predJoints); err != nil {
 			return fmt.Errorf("mpc: predicting to %g s: %w", applyTimeS, err)
 		}

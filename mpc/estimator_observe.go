@@ -40,9 +40,16 @@ func (e *Estimator) Observe(captureTimeS float64, joints []float64, markers []Ma
 		kc = 0
 	} else {
 		copy(e.wMean, e.mean)
-		copy(e.wCov, e.cov)
-		if err := e.predict(kc, captureTimeS, joints); err != nil {
-			return err
+		cov := e.wCov
+		if e.prepared && e.prepFrom == e.k && e.prepTo == kc {
+			copy(e.wCov, e.pCov)
+			cov = nil // prepared: advance the mean only
+			rep.UsedPrepared = true
+		} else {
+			copy(e.wCov, e.cov)
+		}
+		if err := e.advance(e.wMean, cov, e.k, kc, joints, nil); err != nil {
+			return fmt.Errorf("mpc: predicting to the capture at %g s: %w", captureTimeS, err)
 		}
 		rep.StepsPredicted = int(kc - e.k)
 	}
@@ -55,6 +62,7 @@ func (e *Estimator) Observe(captureTimeS float64, joints []float64, markers []Ma
 		e.t0, e.init, e.noMarkers = captureTimeS, true, 0
 	}
 	e.k = kc
+	e.prepared = false
 	e.mean, e.wMean = e.wMean, e.mean
 	e.cov, e.wCov = e.wCov, e.cov
 	copy(e.joints, joints)
@@ -107,9 +115,12 @@ func (e *Estimator) checkObservation(captureTimeS float64, joints []float64, mar
 	return nil
 }
 
-// predict advances e.wMean and e.wCov from the filter's grid index e.k to
-// kc, the capture's grid index, one process step at a time.
-func (e *Estimator) predict(kc int64, captureTimeS float64, joints []float64) error {
+// advance steps mean (and cov, unless nil) from grid index from to grid
+// index to, one process step at a time, with the joints of the path that
+// starts at the measured joints of the filter's time and ends, if end is
+// not nil, at end at grid index to; bias, if not nil, is added to the
+// command points of the path.
+func (e *Estimator) advance(mean, cov []float64, from, to int64, end, bias []float64) error {
 	d := e.d
 	h2a := e.h * e.h * e.set.ProcessAccelMPerS2
 	q := h2a*h2a + e.set.ProcessPositionM*e.set.ProcessPositionM
@@ -120,18 +131,58 @@ func (e *Estimator) predict(kc int64, captureTimeS float64, joints []float64) er
 			e.variances[i] = q
 		}
 	}
-	tF, tC := e.gridTime(e.k), e.gridTime(kc)
+	tF, tEnd := e.gridTime(from), e.gridTime(to)
 	a, b := e.dCur.RawMatrix(), e.dPrev.RawMatrix()
-	for j := e.k + 1; j <= kc; j++ {
-		e.pathJoints(e.qStep, e.gridTime(j), tF, e.joints, tC, joints)
-		if err := e.proc.Step(e.stepNext, e.wMean[:d], e.wMean[d:], e.qStep); err != nil {
-			return fmt.Errorf("mpc: predicting to the capture at %g s: %w", captureTimeS, err)
+	for j := from + 1; j <= to; j++ {
+		e.pathJoints(e.qStep, e.gridTime(j), tF, e.joints, tEnd, end, bias)
+		if err := e.proc.Step(e.stepNext, mean[:d], mean[d:], e.qStep); err != nil {
+			return err
 		}
-		e.proc.SensitivitiesTo(e.dCur, e.dPrev)
-		propagateCovariance(e.wCov, d, a.Data, b.Data, e.variances, e.g, e.t, e.s11)
-		copy(e.wMean[d:], e.wMean[:d])
-		copy(e.wMean[:d], e.stepNext)
+		if cov != nil {
+			e.proc.SensitivitiesTo(e.dCur, e.dPrev)
+			propagateCovariance(cov, d, a.Data, b.Data, e.variances, e.g, e.t, e.s11)
+		}
+		copy(mean[d:], mean[:d])
+		copy(mean[:d], e.stepNext)
 	}
+	return nil
+}
+
+// Prepare does the costly part of the next Observe ahead of time: it
+// propagates the covariance from the filter's time to the grid time of
+// nextCaptureTimeS, linearised along the mean predicted with the recorded
+// commands corrected by the arm's tracking offset (measured joints are not
+// known yet). The next Observe whose
+// capture falls on that grid time uses it and only advances the mean
+// (with the measured joints, exactly as without Prepare); any other
+// Observe ignores it. So the result differs from an unprepared Observe
+// only by the joints the covariance was linearised at (commanded instead
+// of measured), and not at all when the arm is where it was commanded.
+// Calling Prepare is optional; it moves about half of a tick's estimator
+// work off the path from observation to command.
+func (e *Estimator) Prepare(nextCaptureTimeS float64) error {
+	if !e.init {
+		return ErrNotInitialised
+	}
+	if math.IsNaN(nextCaptureTimeS) || math.IsInf(nextCaptureTimeS, 0) {
+		return fmt.Errorf("%w: capture time %g s is not finite", ErrBadObservation, nextCaptureTimeS)
+	}
+	k := e.gridIndex(nextCaptureTimeS)
+	if k <= e.k {
+		return fmt.Errorf("%w: preparing for %g s, not after the filter's time %g s", ErrTimeOrder, nextCaptureTimeS, e.gridTime(e.k))
+	}
+	if k-e.k > int64(e.set.MaxPredictSteps) {
+		return fmt.Errorf("%w: preparing for %g s, %d steps after the filter's time %g s (at most %d)",
+			ErrPredictTooFar, nextCaptureTimeS, k-e.k, e.gridTime(e.k), e.set.MaxPredictSteps)
+	}
+	e.prepared = false
+	copy(e.pMean, e.mean)
+	copy(e.pCov, e.cov)
+	e.trackingOffsetTo(e.bias)
+	if err := e.advance(e.pMean, e.pCov, e.k, k, nil, e.bias); err != nil {
+		return fmt.Errorf("mpc: preparing for the capture at %g s: %w", nextCaptureTimeS, err)
+	}
+	e.prepared, e.prepFrom, e.prepTo = true, e.k, k
 	return nil
 }
 
