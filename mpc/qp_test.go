@@ -544,6 +544,7 @@ func benchmarkQP(b *testing.B, n, m int, warm, factorized bool) {
 	iterations, active := 0, 0
 	b.ReportAllocs()
 	k := 0
+	cpu0 := processCPUSeconds()
 	for b.Loop() {
 		copy(qp.G, gs[k%len(gs)])
 		k++
@@ -569,6 +570,9 @@ func benchmarkQP(b *testing.B, n, m int, warm, factorized bool) {
 			}
 		}
 	}
+	// CPU time (user + system) as well as wall time: on a shared machine
+	// the wall time includes waiting for a core.
+	b.ReportMetric(1e9*(processCPUSeconds()-cpu0)/float64(k), "cpu-ns/op")
 	b.ReportMetric(float64(iterations)/float64(k), "changes/op")
 	b.ReportMetric(float64(active)/float64(k), "active/op")
 }
@@ -742,6 +746,7 @@ func BenchmarkQPFeedback48x192(b *testing.B) {
 	}
 	b.ReportAllocs()
 	b.ResetTimer()
+	cpu := 0.0
 	for i := 0; i < b.N; i++ {
 		b.StopTimer()
 		if err := s.Factorize(qp.H); err != nil {
@@ -750,8 +755,12 @@ func BenchmarkQPFeedback48x192(b *testing.B) {
 		s.PrepareWarm(qp)
 		copy(qp.G, gs[i%len(gs)])
 		b.StartTimer()
+		cpu0 := processCPUSeconds()
 		if _, err := s.SolveFactorized(z, qp, true); err != nil {
 			b.Fatal(err)
 		}
+		cpu += processCPUSeconds() - cpu0
 	}
+	// Includes two getrusage calls per op (about a microsecond).
+	b.ReportMetric(1e9*cpu/float64(b.N), "cpu-ns/op")
 }
