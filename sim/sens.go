@@ -80,6 +80,10 @@ func (m *Model) tangentRHS(d *stepDerivs, rhs []float64, k int, cur, prev, da ro
 			}
 			b := (*[9]float64)(d.rodB[9*ri : 9*ri+9])
 			pa, pb := m.slot[r.a], m.slot[r.b]
+			if pa >= 0 && pb >= 0 {
+				rodTangent(b, k, rhs, pa, pb, cur, r.a, r.b)
+				continue
+			}
 			for j := range k {
 				var dd [3]float64
 				for q := range 3 {
@@ -118,6 +122,29 @@ func (m *Model) tangentRHS(d *stepDerivs, rhs []float64, k int, cur, prev, da ro
 				}
 			}
 		}
+	}
+}
+
+// rodTangent adds one damped rod's part of ∂G/∂x_t·cur for two free
+// nodes a, b (band positions pa, pb): v = B·(cur_a − cur_b), +v on a's
+// rows and −v on b's, column by column in contiguous rows.
+func rodTangent(b *[9]float64, k int, rhs []float64, pa, pb int, cur rows, a, bn int) {
+	row := func(v []float64, r, stride int) []float64 { return v[r*stride : r*stride+k : r*stride+k] }
+	a0, a1, a2 := row(cur.data, 3*a, cur.stride), row(cur.data, 3*a+1, cur.stride), row(cur.data, 3*a+2, cur.stride)
+	b0, b1, b2 := row(cur.data, 3*bn, cur.stride), row(cur.data, 3*bn+1, cur.stride), row(cur.data, 3*bn+2, cur.stride)
+	ra0, ra1, ra2 := row(rhs, 3*pa, k), row(rhs, 3*pa+1, k), row(rhs, 3*pa+2, k)
+	rb0, rb1, rb2 := row(rhs, 3*pb, k), row(rhs, 3*pb+1, k), row(rhs, 3*pb+2, k)
+	for j := range a0 {
+		d0, d1, d2 := a0[j]-b0[j], a1[j]-b1[j], a2[j]-b2[j]
+		v0 := b[0]*d0 + b[1]*d1 + b[2]*d2
+		v1 := b[3]*d0 + b[4]*d1 + b[5]*d2
+		v2 := b[6]*d0 + b[7]*d1 + b[8]*d2
+		ra0[j] += v0
+		ra1[j] += v1
+		ra2[j] += v2
+		rb0[j] -= v0
+		rb1[j] -= v1
+		rb2[j] -= v2
 	}
 }
 

@@ -12,18 +12,17 @@ import (
 type Workspace struct {
 	m *Model
 
-	x, xc, xp, y, g  []float64 // external order, length Dim
-	floor, floorTry  []float64 // per node: rounding level of the gradient
-	xTry, gTry, dir  []float64
-	anchors          []float64
-	rhs              []float64   // band order, length 3×free nodes
-	hess, hessTry    *bandMatrix // Newton Hessians at x and at the line search's trial point
-	own              stepDerivs
-	d                *stepDerivs // where Step leaves the exact factor; own unless a Rollout points it elsewhere
-	valid            bool        // d holds a successful step
-	iters            int
-	sens             sensBuffers
-	restH, restScale float64
+	x, xc, xp, y, g []float64 // external order, length Dim
+	floor, floorTry []float64 // per node: rounding level of the gradient
+	xTry, gTry, dir []float64
+	anchors         []float64
+	rhs             []float64   // band order, length 3×free nodes
+	hess, hessTry   *bandMatrix // Newton Hessians at x and at the line search's trial point
+	own             stepDerivs
+	d               *stepDerivs // where Step leaves the exact factor; own unless a Rollout points it elsewhere
+	valid           bool        // d holds a successful step
+	iters           int
+	sens            sensBuffers
 }
 
 // stepDerivs is everything the derivatives of one step need: the Cholesky
@@ -69,9 +68,10 @@ func (ws *Workspace) NewtonIters() int { return ws.iters }
 //
 //	E(x) = 1/(2h²)(x − y)ᵀM(x − y) + U(x; a⁺) + D(x; x_t),  y = 2x_t − x_{t−1}
 //
-// (see incremental for the terms), found by Newton's method with projected
-// element Hessians and a backtracking line search, to the mass-scaled
-// gradient tolerance. xCur is x_t, xPrev is x_{t−1}, anchorsNext is a⁺.
+// (see incremental for the terms), found from the guess y by Newton's
+// method (exact Hessian where positive definite, element-projected
+// otherwise) with a backtracking line search, to the mass-scaled gradient
+// tolerance. xCur is x_t, xPrev is x_{t−1}, anchorsNext is a⁺.
 // Anchored nodes' entries of the inputs are ignored; xNext holds their file
 // positions.
 //
