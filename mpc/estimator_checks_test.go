@@ -327,6 +327,10 @@ func TestEstimatorLongGapsAreBounded(t *testing.T) {
 	if !rep.Initialised || rep.StepsPredicted != 0 || est.TimeS() != far {
 		t.Fatalf("after a gap of %d steps: report %+v, time %g", DefaultMaxPredictSteps+1, rep, est.TimeS())
 	}
+	// Absurdly far: the grid index must not overflow into "the past".
+	if err := est.Observe(1e300, truth.q, obs, &rep); err != nil || !rep.Initialised {
+		t.Fatalf("observation at 1e300 s: %v, report %+v", err, rep)
+	}
 }
 
 // TestTrackingOffsetShiftsCommands checks the tracking offset and the

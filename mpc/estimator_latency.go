@@ -177,9 +177,11 @@ func lerpJoints(dst []float64, t, t0 float64, q0 []float64, t1 float64, q1 []flo
 	}
 }
 
-// gridIndex rounds a time to the nearest grid index.
+// gridIndex rounds a time to the nearest grid index, clamped to ±2⁵³ so
+// that absurd times stay far away instead of overflowing.
 func (e *Estimator) gridIndex(tS float64) int64 {
-	return int64(math.Round((tS - e.t0) / e.h))
+	const limit = 1 << 53
+	return int64(max(-limit, min(limit, math.Round((tS-e.t0)/e.h))))
 }
 
 // PredictTo writes the estimated positions at cue time applyTimeS (rounded
