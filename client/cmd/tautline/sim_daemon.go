@@ -76,7 +76,7 @@ type inProcessDaemon struct {
 }
 
 // startDaemon serves cellPath on 127.0.0.1 at a free port with the default
-// configuration (quiet logs), captures in captureDir or a temporary
+// configuration (quiet logs) except a 2 s stall timeout, captures in captureDir or a temporary
 // directory. tweak, if not nil, edits the configuration first.
 func startDaemon(cellPath, captureDir string, tweak func(*server.Config)) (*inProcessDaemon, error) {
 	cfg := server.DefaultConfig()
@@ -90,6 +90,10 @@ func startDaemon(cellPath, captureDir string, tweak func(*server.Config)) (*inPr
 		dm.tempDir, captureDir = dir, dir
 	}
 	cfg.CaptureDir = captureDir
+	// The simulated plant shares this process and its CPUs with the
+	// daemon, so a plant step slowed by a busy machine must not read as a
+	// stalled controller (the default 0.25 s is meant for a real cell).
+	cfg.StallTimeoutS = 2
 	if tweak != nil {
 		tweak(&cfg)
 	}
