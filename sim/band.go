@@ -74,13 +74,7 @@ func (b *bandMatrix) factorize() bool {
 		j0 := max(0, i-kd)
 		for j := j0; j <= i; j++ {
 			rj := b.data[j*w : (j+1)*w]
-			li := ri[j0-i+kd : j-i+kd]
-			lj := rj[j0-j+kd : kd]
-			lj = lj[:len(li)]
-			s := ri[j-i+kd]
-			for p, v := range li {
-				s -= v * lj[p]
-			}
+			s := ri[j-i+kd] - bandDot(ri[j0-i+kd:j-i+kd], rj[j0-j+kd:kd])
 			if j < i {
 				ri[j-i+kd] = s * b.invDiag[j]
 				continue
@@ -177,4 +171,23 @@ func axpyNeg(dst []float64, a float64, src []float64) {
 	for ; c < len(dst); c++ {
 		dst[c] -= a * src[c]
 	}
+}
+
+// bandDot is Σ a[p]·b[p] over len(a) ≤ len(b), four at a time.
+func bandDot(a, b []float64) float64 {
+	b = b[:len(a)]
+	var s0, s1, s2, s3 float64
+	p := 0
+	for ; p+4 <= len(a); p += 4 {
+		x := a[p : p+4 : p+4]
+		y := b[p : p+4 : p+4]
+		s0 += x[0] * y[0]
+		s1 += x[1] * y[1]
+		s2 += x[2] * y[2]
+		s3 += x[3] * y[3]
+	}
+	for ; p < len(a); p++ {
+		s0 += a[p] * b[p]
+	}
+	return (s0 + s1) + (s2 + s3)
 }

@@ -19,7 +19,7 @@ func stepHessian(b *testing.B, n int) (*bandMatrix, *mat.SymBandDense, *mat.SymD
 	}
 	var h bandMatrix
 	h.reset(3*len(m.order), m.kd)
-	m.incremental(ws.gTry, xNext, ws.xc, ws.y, anchors, m.h, hessExact, &h, nil)
+	m.incremental(ws.gTry, xNext, m.newStepInputs(ws.xc, ws.y, anchors), m.h, hessExact, &h, nil)
 	dense := bandToDense(&h)
 	sb := mat.NewSymBandDense(h.n, h.kd, nil)
 	sd := mat.NewSymDense(h.n, nil)

@@ -35,10 +35,10 @@ func TestGradientAndHessianAgainstFiniteDifferences(t *testing.T) {
 		x, _ := randomMotion(m, xCur, rng, 0.005, 0)
 		g := make([]float64, m.Dim())
 		energy := func(x []float64) float64 {
-			e, _ := m.incremental(make([]float64, len(x)), x, ws.xc, ws.y, ws.anchors, m.h, hessNone, nil, nil)
+			e, _ := m.incremental(make([]float64, len(x)), x, &ws.in, m.h, hessNone, nil, nil)
 			return e
 		}
-		m.incremental(g, x, ws.xc, ws.y, ws.anchors, m.h, hessNone, nil, nil)
+		m.incremental(g, x, &ws.in, m.h, hessNone, nil, nil)
 		gFD := fd.Gradient(nil, func(v []float64) float64 {
 			// Anchored entries must stay at their file positions.
 			w := append([]float64(nil), v...)
@@ -54,7 +54,7 @@ func TestGradientAndHessianAgainstFiniteDifferences(t *testing.T) {
 		}
 		var hess bandMatrix
 		hess.reset(3*len(m.order), m.kd)
-		m.incremental(g, x, ws.xc, ws.y, ws.anchors, m.h, hessExact, &hess, nil)
+		m.incremental(g, x, &ws.in, m.h, hessExact, &hess, nil)
 		got := bandToDense(&hess)
 		want := mat.NewDense(hess.n, hess.n, nil)
 		// Differentiate G in band order over the free coordinates.
@@ -66,7 +66,7 @@ func TestGradientAndHessianAgainstFiniteDifferences(t *testing.T) {
 			for p, i := range m.order {
 				copy(xw[3*i:3*i+3], v[3*p:3*p+3])
 			}
-			m.incremental(gw, xw, ws.xc, ws.y, ws.anchors, m.h, hessNone, nil, nil)
+			m.incremental(gw, xw, &ws.in, m.h, hessNone, nil, nil)
 			m.toBand(dst, gw)
 		}, free, fdSettings())
 		e := relErr(got, want)

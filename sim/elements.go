@@ -67,6 +67,32 @@ func (m *Model) nodeDiff(x []float64, a, b int) [3]float64 {
 	return [3]float64{x[3*a] - x[3*b], x[3*a+1] - x[3*b+1], x[3*a+2] - x[3*b+2]}
 }
 
+// stepInputs are the inputs of one step's objective other than x: x_t,
+// y = 2x_t − x_{t−1}, the anchors, and per rod the unit direction and
+// length of d_t = x_t,a − x_t,b (4 numbers: û_t, |d_t|), computed once per
+// step by setFrames since they do not change while Newton iterates.
+type stepInputs struct {
+	xc, y, anchors []float64
+	frames         []float64
+}
+
+// setFrames computes in.frames from in.xc.
+func (m *Model) setFrames(in *stepInputs) {
+	for ri := range m.rods {
+		r := &m.rods[ri]
+		u, l := unitOf(m.nodeDiff(in.xc, r.a, r.b))
+		in.frames[4*ri], in.frames[4*ri+1], in.frames[4*ri+2], in.frames[4*ri+3] = u[0], u[1], u[2], l
+	}
+}
+
+// newStepInputs returns inputs with their own storage (for tests and
+// one-off evaluations; the hot path keeps them in a Workspace).
+func (m *Model) newStepInputs(xc, y, anchors []float64) *stepInputs {
+	in := &stepInputs{xc: xc, y: y, anchors: anchors, frames: make([]float64, 4*len(m.rods))}
+	m.setFrames(in)
+	return in
+}
+
 // incremental evaluates the step's objective
 //
 //	E(x) = Σᵢ mᵢ/(2h²)|xᵢ − yᵢ|² + mᵢ·g·(zᵢ − y_zᵢ)           inertia, gravity
@@ -91,9 +117,10 @@ func (m *Model) nodeDiff(x []float64, a, b int) [3]float64 {
 // k·(|d| − L), so its rounding follows |d| and L, not the force). A
 // residual at that level cannot be reduced further, so the convergence
 // test (scaledGrad) discounts it; without this a very stiff rod could
-// never reach a tight tolerance. x, xc (x_t) and y must hold the anchored
+// never reach a tight tolerance. x, in.xc (x_t) and in.y must hold the anchored
 // nodes' file positions.
-func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hessMode, hess *bandMatrix, floor []float64) (e, scale float64) {
+func (m *Model) incremental(g, x []float64, in *stepInputs, h float64, mode hessMode, hess *bandMatrix, floor []float64) (e, scale float64) {
+	xc, y, anchors := in.xc, in.y, in.anchors
 	invH2, invH := 1/(h*h), 1/h
 	clear(g)
 	if floor != nil {
@@ -144,9 +171,9 @@ func (m *Model) incremental(g, x, xc, y, anchors []float64, h float64, mode hess
 		damped := false
 		if r.c > 0 {
 			dt := m.nodeDiff(xc, r.a, r.b)
-			var lt float64
-			ut, lt = unitOf(dt)
-			if lt > 0 {
+			fr := in.frames[4*ri : 4*ri+4 : 4*ri+4]
+			ut = [3]float64{fr[0], fr[1], fr[2]}
+			if lt := fr[3]; lt > 0 {
 				damped = true
 				s := (d[0]-dt[0])*ut[0] + (d[1]-dt[1])*ut[1] + (d[2]-dt[2])*ut[2]
 				er += 0.5 * r.c * invH * s * s

@@ -23,6 +23,7 @@ type Workspace struct {
 	valid           bool        // d holds a successful step
 	iters           int
 	sens            sensBuffers
+	in              stepInputs // views of xc, y, anchors plus the rod frames at x_t
 }
 
 // stepDerivs is everything the derivatives of one step need: the Cholesky
@@ -51,6 +52,7 @@ func (m *Model) NewWorkspace() *Workspace {
 	ws.hessTry.reset(nf, m.kd)
 	ws.own.init(m)
 	ws.d = &ws.own
+	ws.in = stepInputs{xc: ws.xc, y: ws.y, anchors: ws.anchors, frames: make([]float64, 4*len(m.rods))}
 	return ws
 }
 
@@ -121,6 +123,7 @@ func (m *Model) loadStates(ws *Workspace, xCur, xPrev []float64) {
 		ws.y[k] = 2*ws.xc[k] - ws.xp[k]
 	}
 	copy(ws.x, ws.y)
+	m.setFrames(&ws.in)
 }
 
 // evaluate computes E, its rounding scale, the gradient ws.g and the
@@ -128,10 +131,10 @@ func (m *Model) loadStates(ws *Workspace, xCur, xPrev []float64) {
 // tried first for directions (m.firstHess) into ws.hess.
 func (m *Model) evaluate(ws *Workspace, x []float64, h float64, withHess bool) (e, scale float64) {
 	if !withHess {
-		return m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, hessNone, nil, ws.floor)
+		return m.incremental(ws.g, x, &ws.in, h, hessNone, nil, ws.floor)
 	}
 	ws.hess.reset(ws.hess.n, ws.hess.kd)
-	return m.incremental(ws.g, x, ws.xc, ws.y, ws.anchors, h, m.firstHess, ws.hess, ws.floor)
+	return m.incremental(ws.g, x, &ws.in, h, m.firstHess, ws.hess, ws.floor)
 }
 
 // newton minimises the incremental objective with time step h from the
@@ -175,7 +178,7 @@ func (m *Model) newtonIter(ws *Workspace, x []float64, h, e, scale, res float64)
 	)
 	if !ws.hess.factorize() {
 		ws.hess.reset(ws.hess.n, ws.hess.kd)
-		m.incremental(ws.gTry, x, ws.xc, ws.y, ws.anchors, h, hessProjected, ws.hess, nil)
+		m.incremental(ws.gTry, x, &ws.in, h, hessProjected, ws.hess, nil)
 		if !ws.hess.factorize() {
 			return e, scale, 0, fmt.Errorf("%w: the projected Hessian could not be factorised", ErrNoConvergence)
 		}
@@ -192,7 +195,7 @@ func (m *Model) newtonIter(ws *Workspace, x []float64, h, e, scale, res float64)
 			ws.xTry[k] = x[k] + alpha*ws.dir[k]
 		}
 		ws.hessTry.reset(ws.hessTry.n, ws.hessTry.kd)
-		eTry, scaleTry := m.incremental(ws.gTry, ws.xTry, ws.xc, ws.y, ws.anchors, h, m.firstHess, ws.hessTry, ws.floorTry)
+		eTry, scaleTry := m.incremental(ws.gTry, ws.xTry, &ws.in, h, m.firstHess, ws.hessTry, ws.floorTry)
 		// Armijo's sufficient decrease; or, near the solution where the
 		// change of E is lost in rounding, a step that keeps E within its
 		// rounding and shrinks the residual by at least a tenth.
@@ -217,7 +220,7 @@ func (m *Model) finishStep(ws *Workspace) error {
 		copy(d.chol.data, ws.hess.data) // newton left it at ws.x
 	} else {
 		d.chol.reset(d.chol.n, d.chol.kd)
-		m.incremental(ws.gTry, ws.x, ws.xc, ws.y, ws.anchors, m.h, hessExact, &d.chol, nil)
+		m.incremental(ws.gTry, ws.x, &ws.in, m.h, hessExact, &d.chol, nil)
 	}
 	if !d.chol.factorize() {
 		return ErrIndefinite

@@ -35,6 +35,7 @@ func (m *Model) RestPose(ws *Workspace, dst, anchors []float64) error {
 		copy(ws.xp, ws.x)
 		copy(ws.xc, ws.x)
 		copy(ws.y, ws.x)
+		m.setFrames(&ws.in)
 		e, scale := m.evaluate(ws, ws.x, hRelax, true)
 		if m.scaledGrad(ws.g, ws.floor, m.h) <= m.gradTol {
 			copy(dst, ws.x)

@@ -314,7 +314,7 @@ func TestStiffFigureImplicitStaysBounded(t *testing.T) {
 	grad := make([]float64, len(x))
 	var blowup float64
 	for range steps {
-		m.incremental(grad, x, x, x, anchors, m.h, hessNone, nil, nil) // at x = x_t = y this is ∇U
+		m.incremental(grad, x, m.newStepInputs(x, x, anchors), m.h, hessNone, nil, nil) // at x = x_t = y this is ∇U
 		for i := range x {
 			v[i] -= m.h * grad[i] / m.mass[i/3]
 			x[i] += m.h * v[i]
