@@ -29,17 +29,25 @@ esac
 say() { echo "proto: $*" >&2; }
 
 # protoc: from Debian's package when absent.
-if ! command -v protoc >/dev/null 2>&1; then
+PROTOC=$(command -v protoc || true)
+if [ -z "$PROTOC" ]; then
 	if [ "$(id -u)" != 0 ]; then
 		say "protoc is missing; install it with: sudo apt-get install protobuf-compiler"
 		exit 1
 	fi
 	say "installing protoc (Debian protobuf-compiler)"
-	apt-get update -qq >/dev/null
-	DEBIAN_FRONTEND=noninteractive apt-get install -y -qq protobuf-compiler >/dev/null
+	log=$(mktemp)
+	if ! { apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq protobuf-compiler; } >"$log" 2>&1; then
+		cat "$log" >&2
+		rm -f "$log"
+		say "installing protobuf-compiler failed"
+		exit 1
+	fi
+	rm -f "$log"
+	PROTOC=/usr/bin/protoc
 fi
-if [ "$(protoc --version)" != "$PROTOC_WANT" ]; then
-	say "warning: protoc is '$(protoc --version)', the committed code was made with '$PROTOC_WANT'"
+if [ "$("$PROTOC" --version)" != "$PROTOC_WANT" ]; then
+	say "warning: protoc is '$("$PROTOC" --version)', the committed code was made with '$PROTOC_WANT'"
 fi
 
 # The plugins: into GOBIN (default GOPATH/bin) when absent or of another version.
@@ -55,7 +63,7 @@ if [ "$("$gobin/protoc-gen-go-grpc" --version 2>/dev/null || true)" != "protoc-g
 fi
 
 generate() { # generate OUTDIR: writes OUTDIR/$PROTO_DIR/*.pb.go
-	protoc -I proto \
+	"$PROTOC" -I proto \
 		--plugin=protoc-gen-go="$gobin/protoc-gen-go" \
 		--plugin=protoc-gen-go-grpc="$gobin/protoc-gen-go-grpc" \
 		--go_out="$1" --go_opt=module=tautline \
