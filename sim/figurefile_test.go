@@ -209,3 +209,30 @@ func TestParseFigureInline(t *testing.T) {
 		t.Errorf("missing inline figure: %v", errs)
 	}
 }
+
+// ParseFigure must never panic, whatever the bytes; anything it accepts
+// must validate. Seeds: the test figures and the malformed base.
+func FuzzParseFigure(f *testing.F) {
+	for _, name := range []string{"testdata/figures/puppet.json", "testdata/figures/pendulum.json"} {
+		data, err := os.ReadFile(name)
+		if err != nil {
+			f.Fatal(err)
+		}
+		f.Add(data)
+	}
+	f.Add(figureWith(1, "{"))
+	f.Add([]byte(`{"format": "tautline.figure/1", "nodes": [{"name": "a", "mass_kg": 1e-300, "position_m": [0, 0, 0]}]}`))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		fig, err := ParseFigure("fuzz.json", data)
+		if err != nil {
+			var fe FileErrors
+			if !errors.As(err, &fe) || len(fe) == 0 {
+				t.Fatalf("error is not a non-empty FileErrors: %T", err)
+			}
+			return
+		}
+		if err := fig.Validate(); err != nil {
+			t.Fatalf("accepted a figure that does not validate: %v", err)
+		}
+	})
+}
