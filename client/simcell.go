@@ -173,12 +173,11 @@ func RunSimCell(ctx context.Context, c *Client, s SimSettings) (res *SimResult, 
 	}
 
 	po := sim.NewPlantObservation(cell)
-	toWorld := cell.TrackerToWorld
-	_ = toWorld
 	target := make([]float64, nq)
 	refM := make([]float64, 3*len(cell.Markers))
 	wall0 := time.Now()
 	var sumSq float64
+	var lastState pb.SessionState
 	for k := 0; ; k++ {
 		if k == s.StandbyTicks {
 			if _, err := c.Start(ctx, cell.Name); err != nil {
@@ -224,6 +223,7 @@ func RunSimCell(ctx context.Context, c *Client, s SimSettings) (res *SimResult, 
 		}
 		res.Checker.Check(cmd.GetTickSeq(), next)
 		res.States[cmd.GetState()]++
+		lastState = cmd.GetState()
 		live := k >= s.StandbyTicks
 		if s.OpenLoop {
 			cue.PositionTo(target, math.Max(startS, t+tick))
@@ -269,7 +269,20 @@ func RunSimCell(ctx context.Context, c *Client, s SimSettings) (res *SimResult, 
 	if res.Ticks > 0 {
 		res.RMSErrorM = math.Sqrt(sumSq / float64(res.Ticks))
 	}
-	cancel()
+	// A run cut short (or ended on the cue's last tick) leaves the session
+	// playing; stop it so the cell can be armed again.
+	if st := lastState; st == pb.SessionState_SESSION_STATE_LIVE || st == pb.SessionState_SESSION_STATE_COAST {
+		if _, err := c.Stop(ctx, cell.Name, "simulated run ended"); err != nil {
+			return res, err
+		}
+		rec.event(pb.EventKind_EVENT_KIND_OPERATOR, res.Checker.Ticks(), plant.TimeS(), "stop")
+	}
+	// End the stream cleanly and wait for the daemon to let go of the
+	// cell, so that a following run's stream is not refused as a second
+	// controller.
+	if err := drive.CloseSend(); err != nil {
+		return res, err
+	}
 	return res, nil
 }
 
