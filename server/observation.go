@@ -97,12 +97,12 @@ func (e *engine) validate(obs *pb.Observation) tickError {
 	if tc > t {
 		return badTick(timeOrder, "capture_time_s", "capture_time_s %v is after cue_time_s %v; markers cannot be seen before they are captured", tc, t)
 	}
-	if e.haveCapture && tc < e.lastCapture {
-		return badTick(timeOrder, "capture_time_s", "capture_time_s %v went backwards from %v", tc, e.lastCapture)
-	}
 	if t-tc > e.maxLatencyS {
 		return badTick(pb.TickErrorCode_TICK_ERROR_CODE_LATE, "capture_time_s",
 			"markers captured %.3f s before cue_time_s; more than the %.3f s allowed (-max-latency-s)", t-tc, e.maxLatencyS)
+	}
+	if e.haveCapture && tc < e.lastCapture {
+		return badTick(timeOrder, "capture_time_s", "capture_time_s %v went backwards from %v", tc, e.lastCapture)
 	}
 	if e.state == pb.SessionState_SESSION_STATE_IDLE {
 		return badTick(pb.TickErrorCode_TICK_ERROR_CODE_NO_CUE_ARMED, "cell_name",

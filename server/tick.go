@@ -413,8 +413,10 @@ func (e *engine) fillPreview(s *commandSlot, mode pb.SessionState, planned, stop
 // of a run at warn, one tick in Config.DebugEveryTicks at debug.
 func (e *engine) logTick(te tickError, mode pb.SessionState, solve time.Duration) {
 	if solve > seconds(e.cfg.SlowTickS) {
-		e.log.Warn("slow tick", zap.String(fieldSession, e.sessionID()), zap.Uint64(fieldTick, e.lastSeq),
-			zap.String(fieldState, stateName(mode)), zap.Duration("solve", solve))
+		if ce := e.log.Check(zap.WarnLevel, "slow tick"); ce != nil {
+			ce.Write(zap.String(fieldSession, e.sessionID()), zap.Uint64(fieldTick, e.lastSeq),
+				zap.String(fieldState, stateName(mode)), zap.Duration("solve", solve))
+		}
 	}
 	if !te.ok() {
 		e.fallbackRun++
