@@ -21,9 +21,13 @@ const (
 	demoPeriodS = 0.01
 )
 
+// embedded checks EmbedFile against crypto/sha256 and returns its entry.
 func embedded(role tautlinev1.EmbeddedFileRole, name, content string) *tautlinev1.EmbeddedFile {
-	sum := sha256.Sum256([]byte(content))
-	return &tautlinev1.EmbeddedFile{Role: role, Name: name, Content: []byte(content), Sha256: sum[:]}
+	f := EmbedFile(role, name, []byte(content))
+	if sum := sha256.Sum256([]byte(content)); string(f.GetSha256()) != string(sum[:]) || f.GetName() != name || f.GetRole() != role {
+		panic("EmbedFile: wrong entry for " + name)
+	}
+	return f
 }
 
 // startRecord is a SessionStart with small invented embedded files.

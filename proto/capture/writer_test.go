@@ -35,6 +35,9 @@ func TestRotationMakesSelfContainedParts(t *testing.T) {
 		t.Fatal(err)
 	}
 	files := w.Files()
+	if parts, err := Parts(path); err != nil || strings.Join(parts, " ") != strings.Join(files, " ") {
+		t.Errorf("Parts(%s) = %v, %v; want %v", path, parts, err, files)
+	}
 	if len(files) < 3 {
 		t.Fatalf("%d parts; want several at 2000 bytes each for %d ticks", len(files), ticks)
 	}
