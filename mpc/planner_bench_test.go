@@ -199,3 +199,34 @@ func BenchmarkPlannerScaling(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkPlannerKnots measures the choice of correction knots per joint
+// (PlannerSettings.KnotsPerJoint; 20 is one free correction per step): the
+// demo cell's whole tick, and the push test's summed squared marker error
+// relative to open-loop playback (closed/open, lower is better).
+func BenchmarkPlannerKnots(b *testing.B) {
+	open := runDemoLoop(b, PlannerSettings{}, 2.0, 0.05, 200, false)
+	var sumOpen float64
+	for _, e := range open.errAfter {
+		sumOpen += e * e
+	}
+	for _, knots := range []int{2, 3, 4, 6, 10, 20} {
+		b.Run(fmt.Sprintf("knots=%d", knots), func(b *testing.B) {
+			s := PlannerSettings{KnotsPerJoint: knots}
+			closed := runDemoLoop(b, s, 2.0, 0.05, 200, true)
+			var sum float64
+			for _, e := range closed.errAfter {
+				sum += e * e
+			}
+			pl, pt, plan, ts := benchSetup(b, s)
+			b.ReportAllocs()
+			b.ResetTimer()
+			for range b.N {
+				if err := pl.Tick(plan, ts, pt.q, pt.qPrev, pt.x, pt.xPrev, nil); err != nil {
+					b.Fatal(err)
+				}
+			}
+			b.ReportMetric(sum/sumOpen, "err-ratio")
+		})
+	}
+}

@@ -16,7 +16,7 @@ type loopRun struct {
 // plant being the planner's own model at the tick (no mismatch). push
 // (m/s, along y) is given to every free node at t0. control false plays
 // the cue open loop through the guard.
-func runDemoLoop(t *testing.T, s PlannerSettings, t0, push float64, ticks int, control bool) loopRun {
+func runDemoLoop(t testing.TB, s PlannerSettings, t0, push float64, ticks int, control bool) loopRun {
 	t.Helper()
 	cell, cue := demoCell(t)
 	nom, err := SimulateNominal(cell, cue, cue.StartS(), t0+float64(ticks+1)*cell.TickS+1, NominalSettings{})
