@@ -64,6 +64,12 @@ type QPResult struct {
 	RowMult, BoundMult []float64
 	// RowSide and BoundSide give the active set.
 	RowSide, BoundSide []QPSide
+	// Ignored counts violated constraints set aside because they depend on
+	// the active ones and are violated by no more than 1e-6 relative: in
+	// exact arithmetic they hold at a degenerate optimum, and only rounding
+	// (amplified by an ill-conditioned H) makes them look violated. A
+	// larger violation of that kind is reported as ErrQPInfeasible.
+	Ignored int
 }
 
 var (
@@ -99,6 +105,14 @@ var (
 // only H and C and may run before the observation; SolveFactorized then
 // does the rest once g (and the bounds) are known.
 //
+// Accuracy: every successful solve ends with one step of iterative
+// refinement on the final active set, which brings the KKT residuals to
+// about 1e-12 relative on the tests' problems. Limits: the method needs H
+// well enough conditioned for its Cholesky factor; on massively degenerate
+// problems (about 3n constraints tight at one vertex) with cond(H) ≥ 3e8,
+// stress runs saw about one solve in 500 report ErrQPInfeasible wrongly.
+// Keep cond(H) below about 1e8 (the planner's regularisation does).
+//
 // All workspace is allocated by NewQPSolver; nothing allocates afterwards.
 type QPSolver struct {
 	n, m     int
@@ -125,6 +139,9 @@ type QPSolver struct {
 	warmBound   []QPSide
 	y, w        []float64
 	tmp         []float64
+	rs, dz, du  []float64 // refinement residuals and corrections
+	skip        []bool    // constraints set aside this solve as met to rounding
+	ignored     int
 }
 
 // NewQPSolver returns a solver for QPs with n variables and m general rows.
@@ -153,6 +170,10 @@ func NewQPSolver(n, m int, s QPSettings) *QPSolver {
 		y:         make([]float64, m),
 		w:         make([]float64, n),
 		tmp:       make([]float64, n),
+		rs:        make([]float64, n),
+		dz:        make([]float64, n),
+		du:        make([]float64, n+1),
+		skip:      make([]bool, m+n),
 	}
 }
 
@@ -235,6 +256,8 @@ func (s *QPSolver) SolveFactorized(z []float64, qp *QP, warm bool) (QPResult, er
 	}
 	ready := warm && s.warmReady
 	s.warmReady = false
+	clear(s.skip)
+	s.ignored = 0
 	if ready {
 		// PrepareWarm built J and R for the warm set; drop sides that this
 		// QP no longer has and mark the rest for this QP.
@@ -268,6 +291,9 @@ func (s *QPSolver) SolveFactorized(z []float64, qp *QP, warm bool) (QPResult, er
 	}
 	it, err := s.dualLoop(z, qp, iterations)
 	iterations = it
+	if err == nil {
+		s.refine(z, qp)
+	}
 	res := s.finish(z, qp, iterations)
 	return res, err
 }
@@ -667,26 +693,86 @@ func (s *QPSolver) dropNegative(z []float64, qp *QP) (int, error) {
 //
 //	z = J₁R⁻ᵀb − J₂J₂ᵀg,  u = R⁻¹(R⁻ᵀb + J₁ᵀg).
 func (s *QPSolver) eqpSolve(z []float64, qp *QP) {
-	n, q := s.n, s.q
-	y := s.tmp
-	for k := range q {
-		b, _ := s.constraintBound(qp, s.active[k])
-		y[k] = b
+	for k := range s.q {
+		s.tmp[k], _ = s.constraintBound(qp, s.active[k])
 	}
-	s.solveRT(y[:q])
+	s.eqpMap(z, s.u, qp.G, s.tmp)
+}
+
+// eqpMap writes the solution of the equality-constrained QP with gradient
+// gv and active right-hand sides bv (length q, overwritten):
+//
+//	z = J₁R⁻ᵀbv − J₂J₂ᵀgv,  u = R⁻¹(R⁻ᵀbv + J₁ᵀgv).
+func (s *QPSolver) eqpMap(z, u, gv, bv []float64) {
+	n, q := s.n, s.q
+	y := bv[:q]
+	s.solveRT(y)
 	clear(z)
 	for k := range n {
 		col := s.j[k*n : (k+1)*n]
 		if k < q {
 			qpAxpy(z, y[k], col)
-			s.u[k] = y[k] + qpDot(col, qp.G)
+			u[k] = y[k] + qpDot(col, gv)
 		} else {
-			qpAxpy(z, -qpDot(col, qp.G), col)
+			qpAxpy(z, -qpDot(col, gv), col)
 		}
 	}
-	copy(s.rdir[:q], s.u[:q])
-	s.solveR(s.rdir[:q])
-	copy(s.u[:q], s.rdir[:q])
+	s.solveR(u[:q])
+}
+
+// refine makes one step of iterative refinement on the final active set
+// (common practice for factorisations updated many times, cf. Golub & Van
+// Loan, Matrix Computations, §3.5.3): with the residuals
+// rₛ = Hz + g − Σ uₖnₖ and rₚ = b − Nᵀz, the correction solves the same
+// equality-constrained QP with gradient rₛ and right-hand side rₚ.
+func (s *QPSolver) refine(z []float64, qp *QP) {
+	n, q := s.n, s.q
+	symMulVec(s.rs, qp.H, z)
+	for j := range n {
+		s.rs[j] += qp.G[j]
+	}
+	for k := range q {
+		code := s.active[k]
+		b, _ := s.constraintBound(qp, code)
+		s.du[k] = b - s.normalDot(qp, code, z)
+		i, sign := int(code>>1), 1.0
+		if code&1 == 1 {
+			sign = -1
+		}
+		if i < s.m {
+			raw := qp.C.RawMatrix()
+			qpAxpy(s.rs, -sign*s.u[k], raw.Data[i*raw.Stride:i*raw.Stride+n])
+		} else {
+			s.rs[i-s.m] -= sign * s.u[k]
+		}
+	}
+	s.eqpMap(s.dz, s.tmp, s.rs, s.du)
+	for j := range n {
+		z[j] += s.dz[j]
+	}
+	for k := range q {
+		s.u[k] += s.tmp[k]
+		if s.u[k] < 0 && !s.isEquality(qp, int(s.active[k]>>1)) {
+			s.u[k] = 0
+		}
+	}
+}
+
+// symMulVec sets dst = H v from the upper triangle of H.
+func symMulVec(dst []float64, h *mat.SymDense, v []float64) {
+	raw := h.RawSymmetric()
+	n := len(v)
+	for i := range n {
+		row := raw.Data[i*raw.Stride : i*raw.Stride+n]
+		sum := 0.0
+		for k := range i {
+			sum += raw.Data[k*raw.Stride+i] * v[k]
+		}
+		for k := i; k < n; k++ {
+			sum += row[k] * v[k]
+		}
+		dst[i] = sum
+	}
 }
 
 func (s *QPSolver) markActive(qp *QP, code int32) {
@@ -738,7 +824,7 @@ func (s *QPSolver) mostViolated(z []float64, qp *QP) (int32, error) {
 		}
 		for i := range s.m {
 			lo, hi := qp.Lo[i], qp.Hi[i]
-			if s.rowSide[i] != QPInactive || s.rowNorm[i] == 0 || (math.IsInf(lo, -1) && math.IsInf(hi, 1)) {
+			if s.rowSide[i] != QPInactive || s.skip[i] || s.rowNorm[i] == 0 || (math.IsInf(lo, -1) && math.IsInf(hi, 1)) {
 				continue
 			}
 			t := s.rowDot(qp, i, z)
@@ -750,7 +836,7 @@ func (s *QPSolver) mostViolated(z []float64, qp *QP) (int32, error) {
 	}
 	if qp.LB != nil || qp.UB != nil {
 		for j := range s.n {
-			if s.boundSide[j] != QPInactive {
+			if s.boundSide[j] != QPInactive || s.skip[s.m+j] {
 				continue
 			}
 			lo, hi := math.Inf(-1), math.Inf(1)
@@ -767,6 +853,20 @@ func (s *QPSolver) mostViolated(z []float64, qp *QP) (int32, error) {
 		}
 	}
 	return bestCode, nil
+}
+
+// violationScale is Σⱼ|nⱼ|·max|z| for a row and |zⱼ| for a bound: the size
+// of the terms whose rounding makes up a constraint's computed value.
+func (s *QPSolver) violationScale(code int32, z []float64) float64 {
+	i := int(code >> 1)
+	if i >= s.m {
+		return math.Abs(z[i-s.m])
+	}
+	zmax := 0.0
+	for _, v := range z {
+		zmax = math.Max(zmax, math.Abs(v))
+	}
+	return s.rowAbs[i] * zmax
 }
 
 // dualLoop is the Goldfarb–Idnani iteration from the current active set.
@@ -816,7 +916,21 @@ func (s *QPSolver) dualLoop(z []float64, qp *QP, iterations int) (int, error) {
 				t2 = math.Max(-slack/d2sq, 0)
 			}
 			if math.IsInf(t1, 1) && math.IsInf(t2, 1) {
-				return iterations, ErrQPInfeasible
+				// No primal or dual step can satisfy p: infeasible, unless p
+				// is violated by rounding only (see QPResult.Ignored). Then
+				// set p aside and restore the optimum of the active set,
+				// which the dual steps taken for p may have disturbed.
+				if -slack > 1e-6*(1+math.Abs(bp)+s.violationScale(p, z)) {
+					return iterations, ErrQPInfeasible
+				}
+				s.skip[p>>1] = true
+				s.ignored++
+				it, err := s.dropNegative(z, qp)
+				iterations += it
+				if err != nil {
+					return iterations, err
+				}
+				break
 			}
 			if math.IsInf(t2, 1) {
 				// Dual step only: p depends on the active normals.
@@ -865,18 +979,10 @@ func (s *QPSolver) finish(z []float64, qp *QP, iterations int) QPResult {
 	}
 	copy(s.warmRow, s.rowSide)
 	copy(s.warmBound, s.boundSide)
-	raw := qp.H.RawSymmetric()
+	symMulVec(s.rs, qp.H, z)
 	obj := 0.0
 	for i := range s.n {
-		hz := 0.0
-		for k := range s.n {
-			if k >= i {
-				hz += raw.Data[i*raw.Stride+k] * z[k]
-			} else {
-				hz += raw.Data[k*raw.Stride+i] * z[k]
-			}
-		}
-		obj += z[i] * (0.5*hz + qp.G[i])
+		obj += z[i] * (0.5*s.rs[i] + qp.G[i])
 	}
 	return QPResult{
 		Iterations: iterations,
@@ -885,6 +991,7 @@ func (s *QPSolver) finish(z []float64, qp *QP, iterations int) QPResult {
 		BoundMult:  s.w,
 		RowSide:    s.rowSide,
 		BoundSide:  s.boundSide,
+		Ignored:    s.ignored,
 	}
 }
 

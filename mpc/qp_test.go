@@ -764,3 +764,116 @@ func BenchmarkQPFeedback48x192(b *testing.B) {
 	// Includes two getrusage calls per op (about a microsecond).
 	b.ReportMetric(1e9*cpu/float64(b.N), "cpu-ns/op")
 }
+
+// illConditionedQP has H = Q·diag(1, …, 1/cond)·Qᵀ with a random orthogonal
+// Q (from gonum's QR), rows scaled over [1/rowScale, rowScale] with half
+// their entries zero, and, when degenerate is set, every row and a third of
+// the bounds tight at one point zf, so that far more than n constraints
+// meet at the optimum's neighbourhood.
+func illConditionedQP(rng *rand.Rand, n, m int, cond float64, degenerate bool, rowScale float64) *QP {
+	a := mat.NewDense(n, n, nil)
+	for i := range n {
+		for j := range n {
+			a.Set(i, j, rng.NormFloat64())
+		}
+	}
+	var qr mat.QR
+	qr.Factorize(a)
+	var q mat.Dense
+	qr.QTo(&q)
+	eig := make([]float64, n)
+	for k := range eig {
+		eig[k] = math.Pow(cond, -float64(k)/float64(max(n-1, 1)))
+	}
+	h := mat.NewSymDense(n, nil)
+	for i := range n {
+		for j := i; j < n; j++ {
+			sum := 0.0
+			for k := range n {
+				sum += q.At(i, k) * eig[k] * q.At(j, k)
+			}
+			h.SetSym(i, j, sum)
+		}
+	}
+	zf := make([]float64, n)
+	for j := range zf {
+		zf[j] = rng.NormFloat64()
+	}
+	qp := &QP{H: h, G: make([]float64, n), Lo: make([]float64, m), Hi: make([]float64, m),
+		LB: make([]float64, n), UB: make([]float64, n)}
+	for j := range qp.G {
+		qp.G[j] = 10 * rng.NormFloat64()
+	}
+	if m > 0 {
+		qp.C = mat.NewDense(m, n, nil)
+	}
+	for i := range m {
+		scale := math.Pow(rowScale, 2*rng.Float64()-1)
+		t := 0.0
+		for j := range n {
+			c := 0.0
+			if rng.IntN(2) == 0 {
+				c = scale * rng.NormFloat64()
+			}
+			qp.C.Set(i, j, c)
+			t += c * zf[j]
+		}
+		switch {
+		case !degenerate:
+			qp.Lo[i], qp.Hi[i] = t-rng.Float64(), t+rng.Float64()
+		case rng.IntN(2) == 0:
+			qp.Lo[i], qp.Hi[i] = t, math.Inf(1)
+		default:
+			qp.Lo[i], qp.Hi[i] = math.Inf(-1), t
+		}
+	}
+	for j := range n {
+		qp.LB[j], qp.UB[j] = zf[j]-rng.Float64(), zf[j]+rng.Float64()
+		if degenerate && rng.IntN(3) == 0 {
+			qp.LB[j] = zf[j]
+		}
+	}
+	return qp
+}
+
+// TestQPIllConditionedAndDegenerate: cond(H) up to 1e8, row scales over six
+// orders of magnitude and degenerate vertices (m up to 3n constraints tight
+// at one point). The KKT conditions must hold to 1e-8 (as in
+// TestQPSatisfiesKKT; the final refinement step brings these problems to
+// about 1e-12), and a warm restart must return the same point. In stress
+// runs beyond this range (cond(H) ≥ 3e8 on degenerate vertices) about one
+// solve in 500 wrongly reports ErrQPInfeasible (see QPSolver's doc).
+func TestQPIllConditionedAndDegenerate(t *testing.T) {
+	rng := rand.New(rand.NewPCG(77, 2))
+	ignored := 0
+	defer func() { t.Logf("constraints set aside as met to rounding: %d", ignored) }()
+	for trial := range 400 {
+		n := 1 + rng.IntN(30)
+		m := rng.IntN(3 * n)
+		cond := math.Pow(10, 8*rng.Float64())
+		degenerate := rng.IntN(2) == 0
+		rowScale := math.Pow(10, 3*rng.Float64())
+		qp := illConditionedQP(rng, n, m, cond, degenerate, rowScale)
+		s := NewQPSolver(n, m, QPSettings{})
+		z := make([]float64, n)
+		res, err := s.Solve(z, qp, false)
+		if err != nil {
+			t.Fatalf("trial %d n=%d m=%d cond=%.1g degenerate=%v: %v", trial, n, m, cond, degenerate, err)
+		}
+		ignored += res.Ignored
+		stat, primal, dual, compl := kktResidual(qp, z, res.RowMult, res.BoundMult)
+		if !(stat <= 1e-8 && primal <= 1e-8 && dual <= 1e-8 && compl <= 1e-8) {
+			t.Errorf("trial %d n=%d m=%d cond=%.1g degenerate=%v: KKT residuals %.2g %.2g %.2g %.2g",
+				trial, n, m, cond, degenerate, stat, primal, dual, compl)
+		}
+		z2 := make([]float64, n)
+		if _, err := s.Solve(z2, qp, true); err != nil {
+			t.Fatalf("trial %d warm: %v", trial, err)
+		}
+		for j := range z {
+			if math.Abs(z[j]-z2[j]) > 1e-8*(1+math.Abs(z[j])) {
+				t.Fatalf("trial %d: warm restart moved z[%d] from %v to %v", trial, j, z[j], z2[j])
+			}
+		}
+	}
+}
