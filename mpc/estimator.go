@@ -304,8 +304,10 @@ type Estimator struct {
 	// Scratch.
 	wMean, wCov []float64 // working copies, committed on success
 	stepNext    []float64
-	dCur, dPrev *mat.Dense
-	g, t, s11   []float64 // propagation: G = [A B] (D×2D), T = G·P (D×2D), new P11 (D×D)
+	top, bot    mat.Dense  // views of the two halves of a covariance's rows (D×2D)
+	tMat        *mat.Dense // T = G·P (D×2D)
+	tt1, tt2    *mat.Dense // the two halves of Tᵀ (D×D each)
+	s11         *mat.Dense // G·Tᵀ (D×D)
 	qStep       []float64
 	seen        []bool // per marker, duplicates check
 	accepted    []int  // accepted markers of this observation (indices into the observation)
@@ -367,11 +369,10 @@ func NewEstimator(p Process, m MarkerSet, s EstimatorSettings) (*Estimator, erro
 		pCov:       make([]float64, n*n),
 		bias:       make([]float64, nj),
 		stepNext:   make([]float64, d),
-		dCur:       mat.NewDense(d, d, nil),
-		dPrev:      mat.NewDense(d, d, nil),
-		g:          make([]float64, d*n),
-		t:          make([]float64, d*n),
-		s11:        make([]float64, d*d),
+		tMat:       mat.NewDense(d, n, nil),
+		tt1:        mat.NewDense(d, d, nil),
+		tt2:        mat.NewDense(d, d, nil),
+		s11:        mat.NewDense(d, d, nil),
 		qStep:      make([]float64, nj),
 		seen:       make([]bool, nm),
 		accepted:   make([]int, 0, nm),

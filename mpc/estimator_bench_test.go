@@ -8,6 +8,7 @@ import (
 	"testing"
 	"time"
 
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 
 	"tautline/sim"
@@ -287,79 +288,49 @@ func BenchmarkEstimatorTick(b *testing.B) {
 	}
 }
 
-// BenchmarkCovariancePropagation compares the block propagation used by
-// the filter (F·P·Fᵀ with F = [[A, B], [I, 0]] never formed) with the
-// plain dense product of the 2D×2D F through gonum's mat (which goes
-// parallel above 64 rows, so its cpu-ns/op counts both cores), for
-// D = 3·nodes.
-func BenchmarkCovariancePropagation(b *testing.B) {
-	for _, nodes := range []int{20, 60, 150} {
-		d := 3 * nodes
-		n := 2 * d
-		rng := rand.New(rand.NewPCG(9, 9))
-		a, bb := make([]float64, d*d), make([]float64, d*d)
-		for i := range a {
-			a[i], bb[i] = rng.NormFloat64()/float64(d), rng.NormFloat64()/float64(d)
-		}
-		l := mat.NewDense(n, n, nil)
-		for i := 0; i < n; i++ {
-			for j := 0; j < n; j++ {
-				l.Set(i, j, rng.NormFloat64())
+// propagateWithJacobians is the propagation with G = [A B] formed: the
+// block-structured product of the estimator's first version, kept as the
+// middle contender of BenchmarkCovariancePropagation. It replaces p by
+// F·p·Fᵀ + Q with T = G·p (axpy rows), new P11 = upper triangle of T·Gᵀ
+// (dots), new P12 = T[:, :D], new P22 = old P11: 5·D³ multiply-adds.
+func propagateWithJacobians(p []float64, d int, a, b []float64, q11 []float64, g, t, s11 []float64) {
+	n := 2 * d
+	for i := 0; i < d; i++ {
+		copy(g[i*n:i*n+d], a[i*d:(i+1)*d])
+		copy(g[i*n+d:(i+1)*n], b[i*d:(i+1)*d])
+	}
+	for i := 0; i < d; i++ {
+		ti := t[i*n : (i+1)*n]
+		clear(ti)
+		for k, gik := range g[i*n : (i+1)*n] {
+			if gik != 0 {
+				floats.AddScaled(ti, gik, p[k*n:(k+1)*n])
 			}
 		}
-		var p0 mat.Dense
-		p0.Mul(l, l.T())
-		q := make([]float64, d)
-		for i := range q {
-			q[i] = 1e-8
+	}
+	for i := 0; i < d; i++ {
+		for j := i; j < d; j++ {
+			s11[i*d+j] = floats.Dot(t[i*n:(i+1)*n], g[j*n:(j+1)*n])
 		}
-		b.Run(fmt.Sprintf("block/%d", nodes), func(b *testing.B) {
-			p := slices.Clone(p0.RawMatrix().Data)
-			g, tt, s11 := make([]float64, d*n), make([]float64, d*n), make([]float64, d*d)
-			b.ReportAllocs()
-			cpu0 := processCPUSeconds()
-			for i := 0; i < b.N; i++ {
-				copy(p, p0.RawMatrix().Data)
-				propagateCovariance(p, d, a, bb, q, g, tt, s11)
-			}
-			b.ReportMetric(1e9*(processCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
-		})
-		b.Run(fmt.Sprintf("dense/%d", nodes), func(b *testing.B) {
-			f := mat.NewDense(n, n, nil)
-			f.Slice(0, d, 0, d).(*mat.Dense).Copy(mat.NewDense(d, d, a))
-			f.Slice(0, d, d, n).(*mat.Dense).Copy(mat.NewDense(d, d, bb))
-			for i := 0; i < d; i++ {
-				f.Set(d+i, i, 1)
-			}
-			var fp, out mat.Dense
-			fp.ReuseAs(n, n)
-			out.ReuseAs(n, n)
-			b.ReportAllocs()
-			cpu0 := processCPUSeconds()
-			for i := 0; i < b.N; i++ {
-				fp.Mul(f, &p0)
-				out.Mul(&fp, f.T())
-			}
-			b.ReportMetric(1e9*(processCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
-		})
+		s11[i*d+i] += q11[i]
+	}
+	for i := 0; i < d; i++ {
+		copy(p[(d+i)*n+d:(d+i+1)*n], p[i*n:i*n+d])
+	}
+	for i := 0; i < d; i++ {
+		copy(p[i*n+d:(i+1)*n], t[i*n:i*n+d])
+		for j := 0; j < d; j++ {
+			p[(d+j)*n+i] = t[i*n+j]
+		}
+		for j := i; j < d; j++ {
+			p[i*n+j], p[j*n+i] = s11[i*d+j], s11[i*d+j]
+		}
 	}
 }
 
-// TestPropagateCovarianceMatchesDenseProduct checks the block propagation
-// against F·P·Fᵀ + Q formed densely with gonum's mat (the reference
-// library), for a random symmetric P: agreement to 1e-12 relative
-// (rounding of sums of 2D = 60 terms of order one).
-func TestPropagateCovarianceMatchesDenseProduct(t *testing.T) {
-	const d = 30
-	n := 2 * d
-	rng := rand.New(rand.NewPCG(11, 11))
-	a, bb, q := make([]float64, d*d), make([]float64, d*d), make([]float64, d)
-	for i := range a {
-		a[i], bb[i] = rng.NormFloat64(), rng.NormFloat64()
-	}
-	for i := range q {
-		q[i] = rng.Float64()
-	}
+// randomCovariance returns a random symmetric positive definite n×n
+// matrix L·Lᵀ, row-major.
+func randomCovariance(rng *rand.Rand, n int) []float64 {
 	l := mat.NewDense(n, n, nil)
 	for i := 0; i < n; i++ {
 		for j := 0; j < n; j++ {
@@ -368,25 +339,166 @@ func TestPropagateCovarianceMatchesDenseProduct(t *testing.T) {
 	}
 	var p mat.Dense
 	p.Mul(l, l.T())
+	return slices.Clone(p.RawMatrix().Data)
+}
+
+// BenchmarkCovariancePropagation compares three ways to propagate the
+// covariance through one step of a sim figure (the demo jellyfish, nets of
+// 60 and 150 nodes), D = 3·nodes:
+//
+//   - tangent: what the estimator does, G applied through the step's band
+//     factor (Process.TangentTo), 3·D directions;
+//   - jacobians: sim forms A = ∂x⁺/∂x_t and B = ∂x⁺/∂x_{t−1} densely
+//     (SensitivityMatrices), then the block product propagateWithJacobians;
+//   - dense: the same A and B, then F·P·Fᵀ with the 2D×2D F through gonum's
+//     mat (which goes parallel above 64 rows, so its cpu-ns/op counts both
+//     cores).
+func BenchmarkCovariancePropagation(b *testing.B) {
+	for _, sz := range []struct {
+		name       string
+		rows, cols int
+	}{{"demo20", 0, 0}, {"net60", 10, 6}, {"net150", 15, 10}} {
+		var proc *FigureProcess
+		var joints []float64
+		if sz.rows == 0 {
+			c := loadDemoCell(b)
+			model, err := c.NewModel(c.TickS)
+			if err != nil {
+				b.Fatal(err)
+			}
+			if proc, err = NewFigureProcess(model, c.NumJoints(), c.NewWorkspace(nil).AnchorsTo); err != nil {
+				b.Fatal(err)
+			}
+			joints = make([]float64, c.NumJoints())
+			c.HomeTo(joints)
+		} else {
+			var ms MarkerSet
+			proc, ms = netFigure(b, sz.rows, sz.cols, 0.01)
+			_ = ms
+			joints = make([]float64, 3)
+		}
+		d := proc.Dim()
+		n := 2 * d
+		x := make([]float64, d)
+		if err := proc.RestPoseTo(x, joints); err != nil {
+			b.Fatal(err)
+		}
+		xNext := make([]float64, d)
+		if err := proc.Step(xNext, x, x, joints); err != nil {
+			b.Fatal(err)
+		}
+		p0 := randomCovariance(rand.New(rand.NewPCG(9, 9)), n)
+		q := make([]float64, d)
+		for i := range q {
+			q[i] = 1e-8
+		}
+		est, err := NewEstimator(proc, MarkerSet{TrackerToWorld: sim.Identity()}, EstimatorSettings{})
+		if err != nil {
+			b.Fatal(err)
+		}
+		b.Run(sz.name+"/tangent", func(b *testing.B) {
+			p := slices.Clone(p0)
+			b.ReportAllocs()
+			cpu0 := processCPUSeconds()
+			for i := 0; i < b.N; i++ {
+				copy(p, p0)
+				est.propagate(p, q)
+			}
+			b.ReportMetric(1e9*(processCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
+		})
+		ws := proc.model.NewWorkspace()
+		anchors := make([]float64, 3*proc.model.NumAnchors())
+		if proc.anchorsOf != nil {
+			proc.anchorsOf(anchors, joints)
+		}
+		if err := proc.model.Step(ws, xNext, x, x, anchors); err != nil {
+			b.Fatal(err)
+		}
+		dCur, dPrev := mat.NewDense(d, d, nil), mat.NewDense(d, d, nil)
+		b.Run(sz.name+"/jacobians", func(b *testing.B) {
+			p := slices.Clone(p0)
+			g, tt, s11 := make([]float64, d*n), make([]float64, d*n), make([]float64, d*d)
+			b.ReportAllocs()
+			cpu0 := processCPUSeconds()
+			for i := 0; i < b.N; i++ {
+				copy(p, p0)
+				ws.SensitivityMatrices(dCur, dPrev, nil)
+				propagateWithJacobians(p, d, dCur.RawMatrix().Data, dPrev.RawMatrix().Data, q, g, tt, s11)
+			}
+			b.ReportMetric(1e9*(processCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
+		})
+		b.Run(sz.name+"/dense", func(b *testing.B) {
+			f := mat.NewDense(n, n, nil)
+			pm := mat.NewDense(n, n, p0)
+			var fp, out mat.Dense
+			fp.ReuseAs(n, n)
+			out.ReuseAs(n, n)
+			b.ReportAllocs()
+			cpu0 := processCPUSeconds()
+			for i := 0; i < b.N; i++ {
+				ws.SensitivityMatrices(dCur, dPrev, nil)
+				f.Slice(0, d, 0, d).(*mat.Dense).Copy(dCur)
+				f.Slice(0, d, d, n).(*mat.Dense).Copy(dPrev)
+				for i := 0; i < d; i++ {
+					f.Set(d+i, i, 1)
+				}
+				fp.Mul(f, pm)
+				out.Mul(&fp, f.T())
+			}
+			b.ReportMetric(1e9*(processCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
+		})
+	}
+}
+
+// TestPropagateMatchesDenseProduct checks the estimator's propagation
+// (through TangentTo of an exactly linear process) and the formed-Jacobian
+// block product against F·P·Fᵀ + Q formed densely with gonum's mat (the
+// reference library), for a random symmetric P: agreement to 1e-12 of the
+// largest entry (rounding of sums of 2D = 24 terms).
+func TestPropagateMatchesDenseProduct(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 11))
+	proc := newLinearProcess(rng, 4, 2, 0.01)
+	d := proc.Dim()
+	n := 2 * d
+	q := make([]float64, d)
+	for i := range q {
+		if !proc.Fixed(i) {
+			q[i] = rng.Float64()
+		}
+	}
+	p0 := randomCovariance(rng, n)
 	f := mat.NewDense(n, n, nil)
-	f.Slice(0, d, 0, d).(*mat.Dense).Copy(mat.NewDense(d, d, a))
-	f.Slice(0, d, d, n).(*mat.Dense).Copy(mat.NewDense(d, d, bb))
+	f.Slice(0, d, 0, d).(*mat.Dense).Copy(proc.a)
+	f.Slice(0, d, d, n).(*mat.Dense).Copy(proc.b)
 	for i := 0; i < d; i++ {
 		f.Set(d+i, i, 1)
 	}
 	var fp, want mat.Dense
-	fp.Mul(f, &p)
+	fp.Mul(f, mat.NewDense(n, n, slices.Clone(p0)))
 	want.Mul(&fp, f.T())
 	for i := 0; i < d; i++ {
 		want.Set(i, i, want.At(i, i)+q[i])
 	}
-	got := slices.Clone(p.RawMatrix().Data)
-	propagateCovariance(got, d, a, bb, q, make([]float64, d*n), make([]float64, d*n), make([]float64, d*d))
+	est, err := NewEstimator(proc, MarkerSet{TrackerToWorld: sim.Identity()}, EstimatorSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	xs := make([]float64, d)
+	if err := proc.Step(xs, xs, xs, make([]float64, 2)); err != nil {
+		t.Fatal(err)
+	}
+	viaTangent := slices.Clone(p0)
+	est.propagate(viaTangent, q)
+	viaJacobians := slices.Clone(p0)
+	propagateWithJacobians(viaJacobians, d, proc.a.RawMatrix().Data, proc.b.RawMatrix().Data, q,
+		make([]float64, d*n), make([]float64, d*n), make([]float64, d*d))
 	scale := mat.Norm(&want, math.Inf(1))
-	for i := 0; i < n; i++ {
-		for j := 0; j < n; j++ {
-			if e := math.Abs(got[i*n+j] - want.At(i, j)); e > 1e-12*scale {
-				t.Fatalf("P[%d,%d] = %g, dense %g", i, j, got[i*n+j], want.At(i, j))
+	for name, got := range map[string][]float64{"tangent": viaTangent, "jacobians": viaJacobians} {
+		for i := 0; i < n; i++ {
+			for j := 0; j < n; j++ {
+				if e := math.Abs(got[i*n+j] - want.At(i, j)); e > 1e-12*scale {
+					t.Fatalf("%s: P[%d,%d] = %g, dense %g", name, i, j, got[i*n+j], want.At(i, j))
+				}
 			}
 		}
 	}

@@ -1,62 +1,42 @@
 package mpc
 
-import "gonum.org/v1/gonum/floats"
+import "gonum.org/v1/gonum/blas/blas64"
 
-// covBlockRows is the number of matrix rows the covariance kernels keep in
-// cache at a time: 32 rows of a 150-node figure's 900-wide covariance are
-// 230 kB, inside a typical 512 kB–1 MB level-2 cache. On the 2-core
-// development machine (large caches) blocking made no measurable
-// difference (150 nodes: about 0.10 s of CPU per propagation either way);
-// it is kept for machines with smaller caches, where the unblocked loops
-// stream the whole covariance from memory once per row of the result.
-const covBlockRows = 32
-
-// propagateCovariance replaces the full 2D×2D covariance p (row-major, both
-// triangles) by F·p·Fᵀ + Q for F = [[A, B], [I, 0]] without forming F.
-// With G = [A B] (D×2D) and T = G·p:
+// propagate replaces the full 2D×2D covariance p (row-major, both
+// triangles) by F·p·Fᵀ + Q for the last process step, where
 //
-//	new P11 = T·Gᵀ + Q11,  new P12 = T[:, :D] (= A·P11 + B·P21),
-//	new P21 = new P12ᵀ,    new P22 = old P11,
+//	F = [ G ],  G = [∂x_{k+1}/∂x_k  ∂x_{k+1}/∂x_{k−1}]  (D×2D),
+//	    [I 0]
 //
-// 5·D³ multiply-adds (T: 4D³, the upper triangle of T·Gᵀ: D³) against
-// 16·D³ for the dense product with the 2D×2D F. The kernels are axpy and
-// dot loops on gonum's floats (assembly on amd64), serial: no goroutines,
-// no allocation. q11 holds Q11's diagonal (Q is diagonal and lives on the
-// x_{k+1} block only).
-func propagateCovariance(p []float64, d int, a, b []float64, q11 []float64, g, t, s11 []float64) {
+// without forming F or G: with T = G·p (D×2D),
+//
+//	new P11 = G·Tᵀ + Q11 (= G·p·Gᵀ + Q11),  new P12 = T[:, :D] (= A·P11 + B·P21),
+//	new P21 = new P12ᵀ,                      new P22 = old P11.
+//
+// G is applied through Process.TangentTo, 2D directions for T and D for
+// G·Tᵀ. For a sim figure each direction costs a pair of band triangular
+// solves with the step's factor (half-bandwidth kd), so a propagation
+// costs about 12·D²·kd flops; forming G densely and multiplying costs
+// 10·D³ for the products alone (5·D³ multiply-adds, exploiting the block
+// structure of F) on top of 8·D²·kd for G itself, and the plain dense
+// F·p·Fᵀ 32·D³. Measured in BenchmarkCovariancePropagation. Q is diagonal,
+// on the x_{k+1} block only: q11 holds its diagonal.
+func (e *Estimator) propagate(p []float64, q11 []float64) {
+	d := e.d
 	n := 2 * d
-	// G = [A B].
+	e.top.SetRawMatrix(blas64.General{Rows: d, Cols: n, Stride: n, Data: p[:d*n]})
+	e.bot.SetRawMatrix(blas64.General{Rows: d, Cols: n, Stride: n, Data: p[d*n:]})
+	e.proc.TangentTo(e.tMat, &e.top, &e.bot) // T = G·p: the columns of p are the directions
+	t := e.tMat.RawMatrix().Data
+	tt1, tt2 := e.tt1.RawMatrix().Data, e.tt2.RawMatrix().Data
 	for i := 0; i < d; i++ {
-		copy(g[i*n:i*n+d], a[i*d:(i+1)*d])
-		copy(g[i*n+d:(i+1)*n], b[i*d:(i+1)*d])
-	}
-	// T = G·P, row by row: T_i = Σ_k G_ik P_k, over blocks of rows of P
-	// small enough to stay in cache while every T_i passes over them.
-	clear(t[:d*n])
-	for kb := 0; kb < n; kb += covBlockRows {
-		ke := min(kb+covBlockRows, n)
-		for i := 0; i < d; i++ {
-			ti := t[i*n : (i+1)*n]
-			for k := kb; k < ke; k++ {
-				if gik := g[i*n+k]; gik != 0 {
-					floats.AddScaled(ti, gik, p[k*n:(k+1)*n])
-				}
-			}
+		for j := 0; j < d; j++ {
+			tt1[j*d+i] = t[i*n+j]
+			tt2[j*d+i] = t[i*n+d+j]
 		}
 	}
-	// New P11 (upper triangle) = T·Gᵀ + Q11, over blocks of rows of G.
-	for jb := 0; jb < d; jb += covBlockRows {
-		je := min(jb+covBlockRows, d)
-		for i := 0; i < je; i++ {
-			ti := t[i*n : (i+1)*n]
-			for j := max(i, jb); j < je; j++ {
-				s11[i*d+j] = floats.Dot(ti, g[j*n:(j+1)*n])
-			}
-		}
-	}
-	for i := 0; i < d; i++ {
-		s11[i*d+i] += q11[i]
-	}
+	e.proc.TangentTo(e.s11, e.tt1, e.tt2) // G·Tᵀ: the rows of T are the directions
+	s := e.s11.RawMatrix().Data
 	// New P22 = old P11: copy it before P11 is overwritten.
 	for i := 0; i < d; i++ {
 		copy(p[(d+i)*n+d:(d+i+1)*n], p[i*n:i*n+d])
@@ -67,9 +47,12 @@ func propagateCovariance(p []float64, d int, a, b []float64, q11 []float64, g, t
 		for j := 0; j < d; j++ {
 			p[(d+j)*n+i] = t[i*n+j]
 		}
-		// New P11, mirrored.
+		// New P11, symmetrised (G·Tᵀ is symmetric up to rounding).
 		for j := i; j < d; j++ {
-			v := s11[i*d+j]
+			v := 0.5 * (s[i*d+j] + s[j*d+i])
+			if i == j {
+				v += q11[i]
+			}
 			p[i*n+j] = v
 			p[j*n+i] = v
 		}

@@ -16,7 +16,9 @@ type AnchorFunc func(dst, joints []float64)
 // placed by a function of the joints.
 type FigureProcess struct {
 	model     *sim.Model
-	ws        *sim.Workspace
+	ws        *sim.Workspace // rest poses
+	step      *sim.Rollout   // one step, keeping its factor for TangentTo
+	tangent   []*mat.Dense   // the one output matrix Rollout.Tangent takes
 	anchorsOf AnchorFunc
 	anchors   []float64
 	nj        int
@@ -36,6 +38,8 @@ func NewFigureProcess(model *sim.Model, numJoints int, anchorsOf AnchorFunc) (*F
 	p := &FigureProcess{
 		model:     model,
 		ws:        model.NewWorkspace(),
+		step:      model.NewRollout(1),
+		tangent:   make([]*mat.Dense, 1),
 		anchorsOf: anchorsOf,
 		anchors:   make([]float64, 3*model.NumAnchors()),
 		nj:        numJoints,
@@ -73,12 +77,19 @@ func (p *FigureProcess) place(joints []float64) {
 // Step implements Process.
 func (p *FigureProcess) Step(xNext, xCur, xPrev, joints []float64) error {
 	p.place(joints)
-	return p.model.Step(p.ws, xNext, xCur, xPrev, p.anchors)
+	if err := p.step.Run(xCur, xPrev, p.anchors); err != nil {
+		return err
+	}
+	copy(xNext, p.step.State(1))
+	return nil
 }
 
-// SensitivitiesTo implements Process.
-func (p *FigureProcess) SensitivitiesTo(dCur, dPrev *mat.Dense) {
-	p.ws.SensitivityMatrices(dCur, dPrev, nil)
+// TangentTo implements Process with the step's forward sensitivity (sim's
+// Rollout.Tangent): one pair of band triangular solves per direction.
+func (p *FigureProcess) TangentTo(dst, dCur, dPrev *mat.Dense) {
+	p.tangent[0] = dst
+	p.step.Tangent(p.tangent, dCur, dPrev, nil)
+	p.tangent[0] = nil
 }
 
 // RestPoseTo implements Process.

@@ -188,12 +188,14 @@ func (p *linearProcess) Step(xNext, xCur, xPrev, q []float64) error {
 	return nil
 }
 
-func (p *linearProcess) SensitivitiesTo(dCur, dPrev *mat.Dense) {
+func (p *linearProcess) TangentTo(dst, dCur, dPrev *mat.Dense) {
 	if !p.lastValid {
 		panic("no step")
 	}
-	dCur.Copy(p.a)
-	dPrev.Copy(p.b)
+	var bd mat.Dense
+	dst.Mul(p.a, dCur)
+	bd.Mul(p.b, dPrev)
+	dst.Add(dst, &bd)
 }
 
 // RestPoseTo solves K·x = Ka·E·q + f_g on the free coordinates.

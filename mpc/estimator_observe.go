@@ -132,15 +132,13 @@ func (e *Estimator) advance(mean, cov []float64, from, to int64, end, bias []flo
 		}
 	}
 	tF, tEnd := e.gridTime(from), e.gridTime(to)
-	a, b := e.dCur.RawMatrix(), e.dPrev.RawMatrix()
 	for j := from + 1; j <= to; j++ {
 		e.pathJoints(e.qStep, e.gridTime(j), tF, e.joints, tEnd, end, bias)
 		if err := e.proc.Step(e.stepNext, mean[:d], mean[d:], e.qStep); err != nil {
 			return err
 		}
 		if cov != nil {
-			e.proc.SensitivitiesTo(e.dCur, e.dPrev)
-			propagateCovariance(cov, d, a.Data, b.Data, e.variances, e.g, e.t, e.s11)
+			e.propagate(cov, e.variances)
 		}
 		copy(mean[d:], mean[:d])
 		copy(mean[:d], e.stepNext)

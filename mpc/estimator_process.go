@@ -23,9 +23,12 @@ type Process interface {
 	// Step writes x_{k+1} from x_k = xCur and x_{k−1} = xPrev with the
 	// joints at the end of the step.
 	Step(xNext, xCur, xPrev, joints []float64) error
-	// SensitivitiesTo writes ∂x_{k+1}/∂x_k and ∂x_{k+1}/∂x_{k−1} of the
-	// last successful Step (Dim × Dim each).
-	SensitivitiesTo(dCur, dPrev *mat.Dense)
+	// TangentTo applies the Jacobian of the last successful Step to K
+	// directions at once: dst = ∂x_{k+1}/∂x_k·dCur + ∂x_{k+1}/∂x_{k−1}·dPrev,
+	// each Dim × K, one direction per column. dst does not alias the
+	// inputs. For a sim figure this is one banded solve with K right-hand
+	// sides, so the Jacobians are never formed.
+	TangentTo(dst, dCur, dPrev *mat.Dense)
 	// RestPoseTo writes the resting positions of the figure with the
 	// arms at joints.
 	RestPoseTo(dst, joints []float64) error
