@@ -184,7 +184,10 @@ var (
 //	    [    I          0      ],
 //
 // and the two blocks are the step's sensitivities (sim's implicit-function
-// derivatives). Velocities are (x_k − x_{k−1})/h, as in the step. The noise
+// derivatives). They are never formed: the covariance propagation applies
+// them to its columns through the step's band factor (Process.TangentTo;
+// see propagate for the cost). Velocities are (x_k − x_{k−1})/h, as in
+// the step. The noise
 // term is an unmodelled acceleration held over one step: in position form it
 // shifts x_{k+1} by h²·w (the position-form counterpart of the discrete
 // white-noise acceleration model of Bar-Shalom, Li and Kirubarajan,
