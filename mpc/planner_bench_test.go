@@ -56,6 +56,7 @@ func BenchmarkPlannerDemoTick(b *testing.B) {
 	durations := make([]time.Duration, 0, b.N)
 	b.ReportAllocs()
 	b.ResetTimer()
+	cpu := startCPU()
 	for range b.N {
 		t0 := time.Now()
 		if err := pl.Tick(plan, ts, pt.q, pt.qPrev, pt.x, pt.xPrev, nil); err != nil {
@@ -63,7 +64,18 @@ func BenchmarkPlannerDemoTick(b *testing.B) {
 		}
 		durations = append(durations, time.Since(t0))
 	}
+	cpu.report(b)
 	reportP99(b, durations)
+}
+
+// cpuTimer reports CPU time per op ("cpu-ns/op"): on a shared 2-core
+// machine wall time also counts the waits for a core.
+type cpuTimer struct{ start float64 }
+
+func startCPU() cpuTimer { return cpuTimer{processCPUSeconds()} }
+
+func (c cpuTimer) report(b *testing.B) {
+	b.ReportMetric((processCPUSeconds()-c.start)*1e9/float64(b.N), "cpu-ns/op")
 }
 
 // reportP99 reports the 99th percentile of durations.
@@ -80,11 +92,13 @@ func BenchmarkPlannerDemoPrepare(b *testing.B) {
 	pl, pt, _, ts := benchSetup(b, PlannerSettings{})
 	b.ReportAllocs()
 	b.ResetTimer()
+	cpu := startCPU()
 	for range b.N {
 		if err := pl.Prepare(ts, pt.q, pt.qPrev, pt.x, pt.xPrev, nil); err != nil {
 			b.Fatal(err)
 		}
 	}
+	cpu.report(b)
 }
 
 // BenchmarkPlannerDemoFeedback is the feedback phase alone
@@ -97,6 +111,7 @@ func BenchmarkPlannerDemoFeedback(b *testing.B) {
 	durations := make([]time.Duration, 0, b.N)
 	b.ReportAllocs()
 	b.ResetTimer()
+	cpu := startCPU()
 	for range b.N {
 		pl.st.prep = true
 		t0 := time.Now()
@@ -105,6 +120,7 @@ func BenchmarkPlannerDemoFeedback(b *testing.B) {
 		}
 		durations = append(durations, time.Since(t0))
 	}
+	cpu.report(b)
 	reportP99(b, durations)
 }
 
@@ -178,6 +194,8 @@ func BenchmarkPlannerScaling(b *testing.B) {
 					pl, pt, plan, ts := benchSetupCell(b, cell, cue, PlannerSettings{HorizonSteps: steps})
 					b.ReportAllocs()
 					b.ResetTimer()
+					cpu := startCPU()
+					var fbCPU float64
 					for range b.N {
 						if phase == "tick" {
 							if err := pl.Tick(plan, ts, pt.q, pt.qPrev, pt.x, pt.xPrev, nil); err != nil {
@@ -190,9 +208,16 @@ func BenchmarkPlannerScaling(b *testing.B) {
 							b.Fatal(err)
 						}
 						b.StartTimer()
+						c0 := processCPUSeconds()
 						if err := pl.Feedback(plan, pt.x, pt.xPrev); err != nil {
 							b.Fatal(err)
 						}
+						fbCPU += processCPUSeconds() - c0
+					}
+					if phase == "tick" {
+						cpu.report(b)
+					} else {
+						b.ReportMetric(fbCPU*1e9/float64(b.N), "cpu-ns/op")
 					}
 				})
 			}
@@ -221,11 +246,13 @@ func BenchmarkPlannerKnots(b *testing.B) {
 			pl, pt, plan, ts := benchSetup(b, s)
 			b.ReportAllocs()
 			b.ResetTimer()
+			cpu := startCPU()
 			for range b.N {
 				if err := pl.Tick(plan, ts, pt.q, pt.qPrev, pt.x, pt.xPrev, nil); err != nil {
 					b.Fatal(err)
 				}
 			}
+			cpu.report(b)
 			b.ReportMetric(sum/sumOpen, "err-ratio")
 		})
 	}
