@@ -1,15 +1,38 @@
 package capture
 
 import (
+	"encoding/json"
+	"os"
 	"path/filepath"
 	"testing"
+
+	"google.golang.org/protobuf/proto"
 
 	tautlinev1 "tautline/proto/tautline/v1"
 )
 
-// BenchmarkWriteTick records one invented demo tick (an observation of 12
-// joints and 10 markers, a command with next targets and a 5-tick preview)
-// per iteration through a Writer with the default settings: 100 ms fsync
+// demoMarkerIDs reads the marker ids of the demo cell.
+func demoMarkerIDs(b *testing.B) []string {
+	data, err := os.ReadFile("../../testdata/demo/cell.json")
+	if err != nil {
+		b.Fatal(err)
+	}
+	var cell struct {
+		Markers []struct{ ID string }
+	}
+	if err := json.Unmarshal(data, &cell); err != nil || len(cell.Markers) == 0 {
+		b.Fatalf("demo cell markers: %v", err)
+	}
+	ids := make([]string, len(cell.Markers))
+	for i, m := range cell.Markers {
+		ids[i] = m.ID
+	}
+	return ids
+}
+
+// BenchmarkWriteTick records one demo-cell tick (an observation of 12
+// joints and every marker of testdata/demo/cell.json, a command with next
+// targets and a 5-tick preview; values invented) per iteration through a Writer with the default settings: 100 ms fsync
 // interval on its own goroutine, 64 KiB buffer. It reports records/s and
 // bytes/tick (framing included).
 func BenchmarkWriteTick(b *testing.B) {
@@ -20,10 +43,11 @@ func BenchmarkWriteTick(b *testing.B) {
 	if err := w.Write(startRecord()); err != nil {
 		b.Fatal(err)
 	}
+	ids := demoMarkerIDs(b)
 	const ticks = 1000 // distinct ticks, reused round robin
 	var obs, cmd [ticks]*tautlinev1.Record
 	for i := range ticks {
-		obs[i], cmd[i] = tickRecords(i)
+		obs[i], cmd[i] = tickRecordsFor(i, ids)
 	}
 	before := w.Stats().Bytes
 	b.ReportAllocs()
@@ -43,6 +67,8 @@ func BenchmarkWriteTick(b *testing.B) {
 	}
 	b.ReportMetric(float64(2*b.N)/b.Elapsed().Seconds(), "records/s")
 	b.ReportMetric(float64(s.Bytes-before)/float64(b.N), "bytes/tick")
+	b.ReportMetric(float64(proto.Size(obs[0])), "observation-bytes")
+	b.ReportMetric(float64(proto.Size(cmd[0])), "command-bytes")
 }
 
 // BenchmarkReadTick reads back the ticks BenchmarkWriteTick writes.

@@ -54,14 +54,23 @@ func startRecord() *tautlinev1.Record {
 // tickRecords is tick i's observation and command, with values that vary
 // with i so records differ.
 func tickRecords(i int) (obs, cmd *tautlinev1.Record) {
+	ids := make([]string, demoMarkers)
+	for m := range ids {
+		ids[m] = "m" + string(rune('a'+m))
+	}
+	return tickRecordsFor(i, ids)
+}
+
+// tickRecordsFor is tickRecords with the given marker ids.
+func tickRecordsFor(i int, markerIDs []string) (obs, cmd *tautlinev1.Record) {
 	t := float64(i) * demoPeriodS
 	o := &tautlinev1.Observation{TickSeq: uint64(i), CueTimeS: t, CaptureTimeS: t - 0.02,
 		MeasuredJointPositions: make([]float64, demoJoints)}
 	for j := range o.MeasuredJointPositions {
 		o.MeasuredJointPositions[j] = 0.1*float64(j) + 1e-3*float64(i)
 	}
-	for m := range demoMarkers {
-		o.Markers = append(o.Markers, &tautlinev1.MarkerSighting{MarkerId: "m" + string(rune('a'+m)),
+	for m, id := range markerIDs {
+		o.Markers = append(o.Markers, &tautlinev1.MarkerSighting{MarkerId: id,
 			XM: 0.5 + 0.01*float64(m), YM: -0.2 + 1e-4*float64(i), ZM: 1.1 - 0.03*float64(m)})
 	}
 	targets := func(k int) *tautlinev1.JointTargets {
