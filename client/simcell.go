@@ -43,9 +43,13 @@ type SimSettings struct {
 	// whole cue.
 	DurationS float64
 
-	// StandbyTicks are sent in standby before Start, so the daemon sees
-	// the arms at rest at the cue's first pose. 0 means 3.
+	// StandbyTicks are sent in standby before the first Start, so the
+	// daemon sees the arms at rest at the cue's first pose. 0 means 3.
+	// While the daemon refuses Start (its arms not yet at rest at the
+	// first pose) the cell stays in standby, applying its commands, for
+	// at most MaxStandbyS (0 means 10 s).
 	StandbyTicks int
+	MaxStandbyS  float64
 
 	// CapturePath, if not empty, records what the simulated cell sent and
 	// received (proto/capture); the file must not exist.
@@ -118,6 +122,9 @@ func RunSimCell(ctx context.Context, c *Client, s SimSettings) (res *SimResult, 
 	if s.StandbyTicks <= 0 {
 		s.StandbyTicks = 3
 	}
+	if s.MaxStandbyS <= 0 {
+		s.MaxStandbyS = 10
+	}
 	tick := cell.TickS
 	startS, endS := cue.StartS(), cue.EndS()
 	if s.DurationS > 0 && startS+s.DurationS < endS {
@@ -178,12 +185,21 @@ func RunSimCell(ctx context.Context, c *Client, s SimSettings) (res *SimResult, 
 	wall0 := time.Now()
 	var sumSq float64
 	var lastState pb.SessionState
+	live := false
+	originS := t0 + float64(s.StandbyTicks)*tick // plant time of the cue's start
 	for k := 0; ; k++ {
-		if k == s.StandbyTicks {
-			if _, err := c.Start(ctx, cell.Name); err != nil {
-				return res, err
+		if !live && k >= s.StandbyTicks {
+			_, err := c.Start(ctx, cell.Name)
+			switch {
+			case err == nil:
+				live = true
+				originS = plant.TimeS()
+				rec.event(pb.EventKind_EVENT_KIND_OPERATOR, uint64(k), plant.TimeS(), "start")
+			case errors.Is(err, ErrFailedPrecondition) && float64(k)*tick < s.MaxStandbyS:
+				// Not at rest at the first pose yet: another standby tick.
+			default:
+				return res, fmt.Errorf("after %d standby ticks: %w", k, err)
 			}
-			rec.event(pb.EventKind_EVENT_KIND_OPERATOR, uint64(k), plant.TimeS(), "start")
 		}
 		if !s.Fast {
 			if d := time.Until(wall0.Add(time.Duration(float64(k) * tick * float64(time.Second)))); d > 0 {
@@ -224,9 +240,8 @@ func RunSimCell(ctx context.Context, c *Client, s SimSettings) (res *SimResult, 
 		res.Checker.Check(cmd.GetTickSeq(), next)
 		res.States[cmd.GetState()]++
 		lastState = cmd.GetState()
-		live := k >= s.StandbyTicks
-		if s.OpenLoop {
-			cue.PositionTo(target, math.Max(startS, t+tick))
+		if s.OpenLoop && live {
+			cue.PositionTo(target, t+tick-originS+startS)
 		} else {
 			copy(target, next)
 		}
@@ -235,7 +250,7 @@ func RunSimCell(ctx context.Context, c *Client, s SimSettings) (res *SimResult, 
 		}
 		var e float64
 		if live {
-			tNow := plant.TimeS()
+			tNow := plant.TimeS() - originS + startS
 			ref.MarkersTo(refM, tNow)
 			x := plant.Nodes()
 			for m, mk := range cell.Markers {
@@ -260,9 +275,9 @@ func RunSimCell(ctx context.Context, c *Client, s SimSettings) (res *SimResult, 
 			}
 		}
 		if s.Progress != nil {
-			s.Progress(SimProgress{Tick: uint64(k + 1), CueTimeS: plant.TimeS(), EndS: endS, State: cmd.GetState(), ErrorM: e, Violations: res.Checker.Violations()})
+			s.Progress(SimProgress{Tick: uint64(k + 1), CueTimeS: plant.TimeS() - originS + startS, EndS: endS, State: cmd.GetState(), ErrorM: e, Violations: res.Checker.Violations()})
 		}
-		if live && plant.TimeS() >= endS-1e-9 {
+		if live && plant.TimeS()-originS+startS >= endS-1e-9 {
 			break
 		}
 	}

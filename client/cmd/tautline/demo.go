@@ -167,29 +167,12 @@ func demo(ctx context.Context, f *demoFlags, stdout io.Writer) (*demoSummary, er
 			return nil, err
 		}
 	}
-	dm, err := startDaemon(f.cell, daemonDir, nil)
-	if err != nil {
-		return nil, err
-	}
-	defer dm.stop()
-	c, err := client.Dial(dm.addr, client.DialSettings{})
-	if err != nil {
-		return nil, err
-	}
-	defer c.Close()
-	fmt.Fprintf(stdout, "tautline demo: daemon on %s serving cell %q; cue %s (%.1f s); profile %s\n",
-		dm.addr, in.cell.Name, f.cue, in.cue.DurationS(), f.profile)
+	fmt.Fprintf(stdout, "tautline demo: cell %q; cue %s (%.1f s); profile %s\n", in.cell.Name, f.cue, in.cue.DurationS(), f.profile)
 
 	results := map[bool]*client.SimResult{}
 	for _, open := range []bool{true, false} {
 		mode := modeName(open)
-		prog := newProgress(stdout, mode)
-		res, err := client.RunSimCell(ctx, c, client.SimSettings{
-			Cell: in.cell, Cue: in.cue, CueCSV: in.cueCSV, CueName: "demo-" + mode, CueFileName: f.cue,
-			Profile: in.profile, OpenLoop: open, Fast: f.fast, DurationS: f.durationS,
-			CapturePath: filepath.Join(f.out, mode+".tlcap"), Progress: prog.update,
-		})
-		prog.done()
+		res, err := demoRun1(ctx, f, in, open, daemonDir, stdout)
 		if err != nil {
 			return nil, fmt.Errorf("%s run: %w", mode, err)
 		}
@@ -248,6 +231,32 @@ func demo(ctx context.Context, f *demoFlags, stdout io.Writer) (*demoSummary, er
 	printDemoTable(stdout, s)
 	fmt.Fprintf(stdout, "wrote %s (summary.json, tracking_error.png, report/, captures) in %.1f s\n", f.out, s.WallTimeS)
 	return s, nil
+}
+
+// demoRun1 runs the simulated cell once against a daemon of its own, so
+// that both runs meet a daemon in the same state (fresh, idle, no guard
+// history) and differ only in whether the corrections are applied.
+func demoRun1(ctx context.Context, f *demoFlags, in *simInputs, open bool, daemonDir string, stdout io.Writer) (*client.SimResult, error) {
+	mode := modeName(open)
+	dm, err := startDaemon(f.cell, daemonDir, nil)
+	if err != nil {
+		return nil, err
+	}
+	defer dm.stop()
+	c, err := client.Dial(dm.addr, client.DialSettings{})
+	if err != nil {
+		return nil, err
+	}
+	defer c.Close()
+	fmt.Fprintf(stdout, "%s: in-process daemon on %s\n", mode, dm.addr)
+	prog := newProgress(stdout, mode)
+	res, err := client.RunSimCell(ctx, c, client.SimSettings{
+		Cell: in.cell, Cue: in.cue, CueCSV: in.cueCSV, CueName: "demo-" + mode, CueFileName: f.cue,
+		Profile: in.profile, OpenLoop: open, Fast: f.fast, DurationS: f.durationS,
+		CapturePath: filepath.Join(f.out, mode+".tlcap"), Progress: prog.update,
+	})
+	prog.done()
+	return res, err
 }
 
 func printDemoTable(w io.Writer, s *demoSummary) {
