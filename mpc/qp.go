@@ -250,12 +250,11 @@ func (s *QPSolver) SolveFactorized(z []float64, qp *QP, warm bool) (QPResult, er
 		panic("mpc: qp: SolveFactorized before a successful Factorize")
 	}
 	s.checkShape(z, qp)
-	if err := s.checkData(qp); err != nil {
-		s.warmReady = false
-		return QPResult{}, err
-	}
 	ready := warm && s.warmReady
 	s.warmReady = false
+	if err := s.checkData(qp, ready); err != nil {
+		return QPResult{}, err
+	}
 	clear(s.skip)
 	s.ignored = 0
 	if ready {
@@ -319,7 +318,9 @@ func (s *QPSolver) checkShape(z []float64, qp *QP) {
 	}
 }
 
-func (s *QPSolver) checkData(qp *QP) error {
+// checkData validates g and the bounds and, unless rowsKnown (PrepareWarm
+// analysed the same C), analyses the rows of C.
+func (s *QPSolver) checkData(qp *QP, rowsKnown bool) error {
 	for _, v := range qp.G {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			return ErrQPNotFinite
@@ -340,8 +341,15 @@ func (s *QPSolver) checkData(qp *QP) error {
 		if err := check(qp.Lo, qp.Hi); err != nil {
 			return err
 		}
-		if err := s.analyseRows(qp); err != nil {
-			return err
+		if !rowsKnown {
+			if err := s.analyseRows(qp); err != nil {
+				return err
+			}
+		}
+		for i, norm := range s.rowNorm {
+			if norm == 0 && (qp.Lo[i] > 0 || qp.Hi[i] < 0) {
+				return ErrQPInfeasible // 0 = Cᵢz outside [Lo, Hi]
+			}
 		}
 	}
 	if qp.LB != nil && qp.UB != nil {
@@ -386,9 +394,6 @@ func (s *QPSolver) analyseRows(qp *QP) error {
 		}
 		s.rowNorm[i] = math.Sqrt(sum)
 		s.rowAbs[i] = abs
-		if sum == 0 && (qp.Lo[i] > 0 || qp.Hi[i] < 0) {
-			return ErrQPInfeasible // 0 = Cᵢz outside [Lo, Hi]
-		}
 	}
 	return nil
 }
@@ -524,8 +529,7 @@ func (s *QPSolver) addActive(code int32, u float64) {
 		if d[k] == 0 {
 			continue
 		}
-		h := math.Hypot(d[k-1], d[k])
-		c, sn := d[k-1]/h, d[k]/h
+		c, sn, h := qpGivens(d[k-1], d[k])
 		d[k-1], d[k] = h, 0
 		rotateColumns(s.j[(k-1)*n:k*n], s.j[k*n:(k+1)*n], c, sn)
 	}
@@ -546,11 +550,10 @@ func (s *QPSolver) dropActive(l int) {
 	}
 	for c := l; c < q-1; c++ {
 		a, b := s.r[c*n+c], s.r[c*n+c+1]
-		h := math.Hypot(a, b)
-		if h == 0 {
+		if a == 0 && b == 0 {
 			continue
 		}
-		cs, sn := a/h, b/h
+		cs, sn, h := qpGivens(a, b)
 		s.r[c*n+c], s.r[c*n+c+1] = h, 0
 		for cc := c + 1; cc < q-1; cc++ {
 			x, y := s.r[cc*n+c], s.r[cc*n+c+1]
@@ -559,6 +562,17 @@ func (s *QPSolver) dropActive(l int) {
 		rotateColumns(s.j[c*n:(c+1)*n], s.j[(c+1)*n:(c+2)*n], cs, sn)
 	}
 	s.q--
+}
+
+// qpGivens returns the rotation (c, s) with c·a + s·b = h = √(a²+b²) and
+// −s·a + c·b = 0. math.Hypot is exact but slow; the plain formula is used
+// unless a² + b² could have overflowed or lost precision to underflow.
+func qpGivens(a, b float64) (c, s, h float64) {
+	h = math.Sqrt(a*a + b*b)
+	if !(h > 1e-150) || math.IsInf(h, 1) {
+		h = math.Hypot(a, b)
+	}
+	return a / h, b / h, h
 }
 
 // rotateColumns applies [a b] ← [c·a + s·b, −s·a + c·b].
