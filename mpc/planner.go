@@ -23,6 +23,14 @@ type MarkerReference interface {
 	MarkersTo(dst []float64, tS float64)
 }
 
+// NominalStates gives the figure's nominal state over cue time (length
+// Dim of the cell's model). *Nominal is one. When the planner's reference
+// also offers the nominal states, the planner tracks in offset-free form
+// (see Planner).
+type NominalStates interface {
+	StateTo(dst []float64, tS float64)
+}
+
 // Budget is the caller's say over the work of one tick: the planner asks
 // it before every Gauss-Newton iteration of the prepare phase beyond the
 // linearisation, and stops when it returns false. A nil Budget never
@@ -64,6 +72,21 @@ type Budget func() bool
 // KnotsPerJoint); the next tick's target is q̄(t+Δt) + δq(Δt), read off the
 // same function, and the preview is q̄(t+iΔt) + δq(iΔt).
 //
+// # Offset-free tracking
+//
+// The planner's model steps with h_p, the figure (and the simulated
+// nominal) with the tick, so even on its nominal motion the model's
+// prediction differs from the reference by the model's discretisation
+// error, a few millimetres for the demo cell; tracking the raw reference
+// would make the planner "correct" a figure that is exactly on it. When
+// the reference also gives nominal states (NominalStates, as *Nominal
+// does), each tick the model is rolled out from the nominal state under
+// the nominal joints, and the markers of that rollout replace r_k: the
+// planner then corrects only the difference the actual state and the
+// corrections make, which is zero on the nominal. It costs one rollout
+// (no sensitivities) in the prepare phase. A reference file has no states;
+// then r_k is the file's.
+//
 // # Cost and constraints
 //
 // With step states x_k, k = 1…N, step joints q_k = q̄_k + δ_k:
@@ -90,6 +113,13 @@ type Planner struct {
 	model *sim.Model
 	roll  *sim.Rollout
 	cws   *sim.CellWorkspace
+
+	nomStates NominalStates // nil: track ref as given
+	nomRoll   *sim.Rollout  // the model's own nominal rollout (offset-free tracking)
+	xBar0     []float64
+	xBarM1    []float64
+	xBarPrev  []float64
+	anchBar   []float64
 
 	nq, steps, knots, nc int
 	dim, na3, nm3        int
@@ -285,6 +315,14 @@ func NewPlanner(cell *sim.Cell, sched JointSchedule, ref MarkerReference, s Plan
 	p.basis = newCorrectionBasis(p.steps, p.knots, p.hp)
 	p.roll = model.NewRollout(p.steps)
 	p.cws = cell.NewWorkspace(model)
+	if ns, ok := ref.(NominalStates); ok {
+		p.nomStates = ns
+		p.nomRoll = model.NewRollout(p.steps)
+		p.xBar0 = make([]float64, p.dim)
+		p.xBarM1 = make([]float64, p.dim)
+		p.xBarPrev = make([]float64, p.dim)
+		p.anchBar = make([]float64, p.steps*p.na3)
+	}
 	p.allocate()
 	p.buildLinearTerms()
 	return p, nil

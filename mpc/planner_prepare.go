@@ -44,6 +44,9 @@ func (p *Planner) Prepare(tS float64, qCmd, qCmdPrev, xPred, xPredPrev []float64
 
 	p.shiftWarmStart(tS)
 	p.loadTick(tS, qCmd, qCmdPrev, xPred, xPredPrev)
+	if err := p.modelReference(); err != nil {
+		return err
+	}
 
 	if err := p.evaluate(st.c); err != nil {
 		return err
@@ -133,6 +136,33 @@ func (p *Planner) loadTick(tS float64, qCmd, qCmdPrev, xPred, xPredPrev []float6
 	p.backState(st.xm1, xPred, xPredPrev)
 	p.fillLinearConstants()
 	p.selectConstraints()
+}
+
+// modelReference replaces r_k by the markers of the model's rollout from
+// the nominal state under the nominal joints (offset-free tracking, see
+// Planner), when the reference gives nominal states.
+func (p *Planner) modelReference() error {
+	if p.nomStates == nil {
+		return nil
+	}
+	st, nq, na3 := &p.st, p.nq, p.na3
+	p.nomStates.StateTo(p.xBar0, st.tS)
+	p.nomStates.StateTo(p.xBarPrev, st.tS-p.tickS)
+	p.backState(p.xBarM1, p.xBar0, p.xBarPrev)
+	for k := 1; k <= p.steps; k++ {
+		p.cws.AnchorsTo(p.anchBar[(k-1)*na3:k*na3], st.qbar[k*nq:(k+1)*nq])
+	}
+	if err := p.nomRoll.Run(p.xBar0, p.xBarM1, p.anchBar); err != nil {
+		return fmt.Errorf("mpc: planner nominal rollout: %w", err)
+	}
+	for k := 0; k <= p.steps; k++ {
+		x := p.nomRoll.State(k)
+		r := st.refM[k*p.nm3 : (k+1)*p.nm3]
+		for m, node := range p.markerNodes {
+			copy(r[3*m:3*m+3], x[3*node:3*node+3])
+		}
+	}
+	return nil
 }
 
 // backState writes x(t−h_p) from x(t) and x(t−Δt) by constant velocity.
