@@ -63,7 +63,8 @@ type Stats struct {
 	// SyncedRecords is how many of them are known to be on disk (their
 	// part fsynced after they were written).
 	SyncedRecords int64
-	// Bytes is the number of bytes written to all parts, headers included.
+	// Bytes is the number of bytes written to all parts, headers included
+	// (bytes still in the buffer count).
 	Bytes int64
 	// Syncs counts successful fsyncs of buffered records.
 	Syncs int64
@@ -264,12 +265,23 @@ func (w *Writer) fail(err error) error {
 }
 
 // Write appends rec to the capture. The first record must be the
-// SessionStart, and only the first. A record the format cannot hold (no
+// SessionStart, and only the first. A SessionEnd is made durable before
+// Write returns (Write syncs after it). A record the format cannot hold (no
 // kind, over MaxRecordBytes) is refused with an error and nothing written;
 // the recording goes on. A write error is fatal: see Err.
 //
 // Write keeps no reference to rec.
 func (w *Writer) Write(rec *tautlinev1.Record) error {
+	if err := w.write(rec); err != nil {
+		return err
+	}
+	if rec.GetSessionEnd() != nil {
+		return w.Sync()
+	}
+	return nil
+}
+
+func (w *Writer) write(rec *tautlinev1.Record) error {
 	w.mu.Lock()
 	defer w.mu.Unlock()
 	if w.err != nil {

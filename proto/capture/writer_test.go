@@ -235,3 +235,26 @@ func TestConcurrentWriteSyncAndSplit(t *testing.T) {
 		}
 	}
 }
+
+// A session end is on disk when Write returns, with no timer and no Sync.
+func TestSessionEndIsSynced(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "c.tlcap")
+	w, err := Create(path, Settings{FlushInterval: -1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer w.Close()
+	end := &tautlinev1.Record{Kind: &tautlinev1.Record_SessionEnd{SessionEnd: &tautlinev1.SessionEnd{Reason: "cue ended"}}}
+	for _, r := range []*tautlinev1.Record{smallStart(), smallRecord(0), end} {
+		if err := w.Write(r); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if s := w.Stats(); s.SyncedRecords != 3 || s.Syncs != 1 {
+		t.Errorf("stats after the session end: %+v; want 3 records synced once", s)
+	}
+	recs, damage, err := ReadFile(path)
+	if len(recs) != 3 || damage != nil || err != nil {
+		t.Fatalf("file holds %d records (%v, %v) before Close; want 3", len(recs), damage, err)
+	}
+}

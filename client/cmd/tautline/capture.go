@@ -23,7 +23,8 @@ const captureUsage = `usage: tautline capture info FILE
        tautline capture repair [-cut-at-corruption] FILE
 
 info prints a capture's session, cell, cue, duration, records by kind and
-any damage. It exits 0 when the capture reads to its end or to a torn tail
+any damage; for a capture split into parts (FILE-0001, ...) it prints each
+part. It exits 0 when the capture reads to its end or to a torn tail
 (reported), 1 when damage is followed by valid records or the file is not a
 capture.
 
@@ -65,15 +66,26 @@ func runCaptureInfo(args []string, stdout, stderr io.Writer) error {
 	if err != nil {
 		return err
 	}
-	s, err := capture.Summarize(path)
+	// A capture split into parts is named by its base path.
+	parts, err := capture.Parts(path)
 	if err != nil {
 		return err
 	}
-	printSummary(stdout, s)
-	if s.Corrupt != nil {
-		return s.Corrupt
+	var corrupt error
+	for i, part := range parts {
+		s, err := capture.Summarize(part)
+		if err != nil {
+			return err
+		}
+		if i > 0 {
+			fmt.Fprintln(stdout)
+		}
+		printSummary(stdout, s)
+		if s.Corrupt != nil && corrupt == nil {
+			corrupt = s.Corrupt
+		}
 	}
-	return nil
+	return corrupt
 }
 
 func printSummary(w io.Writer, s *capture.Summary) {

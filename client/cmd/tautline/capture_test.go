@@ -159,3 +159,34 @@ func TestCaptureUsage(t *testing.T) {
 		t.Errorf("info on a CSV: exit %d, %q", code, errs)
 	}
 }
+
+func TestCaptureInfoOnParts(t *testing.T) {
+	base := filepath.Join(t.TempDir(), "run.tlcap")
+	w, err := capture.Create(base, capture.Settings{FlushInterval: -1, MaxFileBytes: 200})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := w.Write(&tautlinev1.Record{Kind: &tautlinev1.Record_SessionStart{SessionStart: &tautlinev1.SessionStart{SessionId: "split"}}}); err != nil {
+		t.Fatal(err)
+	}
+	for i := range 20 {
+		obs := &tautlinev1.Observation{TickSeq: uint64(i), MeasuredJointPositions: []float64{1, 2, 3}}
+		if err := w.Write(&tautlinev1.Record{Kind: &tautlinev1.Record_Observation{Observation: obs}}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := w.Close(); err != nil {
+		t.Fatal(err)
+	}
+	n := len(w.Files())
+	code, out, errs := runTautline("capture", "info", base)
+	if code != 0 || n < 2 {
+		t.Fatalf("exit %d with %d parts: %s", code, n, errs)
+	}
+	if got := strings.Count(out, "session   split (part "); got != n {
+		t.Errorf("info printed %d parts, the writer made %d:\n%s", got, n, out)
+	}
+	if got := strings.Count(out, "continued in the next part"); got != n-1 {
+		t.Errorf("%d parts say they continue, want %d", got, n-1)
+	}
+}
