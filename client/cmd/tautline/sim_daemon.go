@@ -19,6 +19,7 @@ type daemonFlags struct {
 	addr                      string
 	caFile, certFile, keyFile string
 	captureDir                string
+	prepareBudgetS            float64
 }
 
 func (d *daemonFlags) bind(fs *flag.FlagSet, inProcessHelp string) {
@@ -26,6 +27,7 @@ func (d *daemonFlags) bind(fs *flag.FlagSet, inProcessHelp string) {
 	fs.StringVar(&d.caFile, "tls-ca", "", "CA bundle (PEM) the daemon's certificate must chain to (turns TLS on)")
 	fs.StringVar(&d.certFile, "tls-cert", "", "client certificate (PEM) for a daemon that requires one")
 	fs.StringVar(&d.keyFile, "tls-key", "", "client private key (PEM)")
+	fs.Float64Var(&d.prepareBudgetS, "prepare-budget-s", 0, "an in-process daemon's planner prepare budget per tick, s (0: the daemon's default; a large value makes runs repeat bit for bit)")
 	fs.StringVar(&d.captureDir, "daemon-capture-dir", "", "where an in-process daemon writes its own captures (empty: a temporary directory, removed at exit)")
 }
 
@@ -54,7 +56,15 @@ func (d *daemonFlags) connect(cellPath string, tweak func(*server.Config)) (*con
 		}
 		return &connection{Client: c}, nil
 	}
-	dm, err := startDaemon(cellPath, d.captureDir, tweak)
+	budget := d.prepareBudgetS
+	dm, err := startDaemon(cellPath, d.captureDir, func(cfg *server.Config) {
+		if budget > 0 {
+			cfg.PrepareBudgetS = budget
+		}
+		if tweak != nil {
+			tweak(cfg)
+		}
+	})
 	if err != nil {
 		return nil, err
 	}
