@@ -239,10 +239,8 @@ func (m *Model) incremental(g, x []float64, in *stepInputs, h float64, mode hess
 		p := m.slot[n]
 		hess.addBlock(p, p, &blk, 1)
 	}
-	if floor != nil {
-		for i := range floor {
-			floor[i] *= 16 * 0x1p-52
-		}
+	for i := range floor {
+		floor[i] *= 16 * 0x1p-52
 	}
 	return e, scale
 }
