@@ -177,7 +177,7 @@ func TestPlantPushChangesVelocity(t *testing.T) {
 
 func TestParseMismatchErrors(t *testing.T) {
 	cases := map[string]string{
-		`{"format": "tautline.mismatch/2"}`:                                     "format",
+		`{"format": "tautline.mismatch/2"}`:                                    "format",
 		`{"format": "tautline.mismatch/1", "mass_spread": 1.5}`:                "mass_spread",
 		`{"format": "tautline.mismatch/1", "latency_s": -1}`:                   "latency_s",
 		`{"format": "tautline.mismatch/1", "occlusion": 0.1}`:                  "occlusion",
