@@ -137,3 +137,47 @@ func TestPlannerSettingsResolve(t *testing.T) {
 		}
 	}
 }
+
+// TestPlannerPredictToMatchesPlant: after a tick, PredictTo's first-order
+// prediction of the next state (h_p = tick, no mismatch) agrees with the
+// plant's actual next state to second order in the step: within 1% of how
+// far the figure moved in that tick (a loose bound; the linearisation
+// error is (dc)², tiny next to the motion).
+func TestPlannerPredictToMatchesPlant(t *testing.T) {
+	cell, cue := demoCell(t)
+	nom, err := SimulateNominal(cell, cue, cue.StartS(), 3, NominalSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pl, err := NewPlanner(cell, cue, nom, PlannerSettings{HorizonStepS: cell.TickS})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pt := newPlant(t, cell, nom, cue, 2)
+	for i := 1; i < len(pt.x)/3; i++ {
+		pt.xPrev[3*i+1] -= 0.0005
+	}
+	plan := pl.NewPlan()
+	if err := pl.Tick(plan, 2, pt.q, pt.qPrev, pt.x, pt.xPrev, nil); err != nil {
+		t.Fatal(err)
+	}
+	pred, predPrev := make([]float64, len(pt.x)), make([]float64, len(pt.x))
+	pl.PredictTo(pred, predPrev, pt.x)
+	before := append([]float64(nil), pt.x...)
+	pt.apply(t, plan.Target)
+	if pt.grep.Any != 0 {
+		t.Fatalf("the guard acted (%v); the check needs the plan applied as sent", pt.grep.Any)
+	}
+	var moved, miss float64
+	for i := range pred {
+		moved = math.Max(moved, math.Abs(pt.x[i]-before[i]))
+		miss = math.Max(miss, math.Abs(pt.x[i]-pred[i]))
+		if predPrev[i] != before[i] {
+			t.Fatalf("predicted previous state differs from the observed one at %d", i)
+		}
+	}
+	t.Logf("moved %g m in the tick, prediction missed by %g m", moved, miss)
+	if !(moved > 0) || miss > 0.01*moved {
+		t.Errorf("prediction missed by %g m; the figure moved %g m", miss, moved)
+	}
+}
