@@ -2,6 +2,7 @@ package capture
 
 import (
 	"encoding/json"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"testing"
@@ -86,6 +87,27 @@ func BenchmarkReadTick(b *testing.B) {
 		got, r, err := readAll(data)
 		if err != nil || r.Damage() != nil || len(got) != len(recs) {
 			b.Fatalf("%d records, %v, %v", len(got), r.Damage(), err)
+		}
+	}
+}
+
+// BenchmarkGarbageTail reads a small capture followed by 1 MiB of random
+// bytes: the cost of deciding that a long damaged stretch hides no valid
+// record (the scan's worst case short of MaxRecordBytes).
+func BenchmarkGarbageTail(b *testing.B) {
+	data := smallCapture(b, 4)
+	garbage := make([]byte, 1<<20)
+	rng := rand.New(rand.NewPCG(6, 4))
+	for i := range garbage {
+		garbage[i] = byte(rng.Uint32())
+	}
+	data = append(data, garbage...)
+	b.SetBytes(int64(len(garbage)))
+	b.ReportAllocs()
+	for b.Loop() {
+		recs, r, err := readAll(data)
+		if err != nil || len(recs) != 5 || r.Damage() == nil {
+			b.Fatalf("%d records, %v, %v", len(recs), r.Damage(), err)
 		}
 	}
 }

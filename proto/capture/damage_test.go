@@ -153,3 +153,33 @@ func TestHugeLengthIsCheckedFirst(t *testing.T) {
 		t.Errorf("a bad length costs %v allocations over a clean read's %v", allocs, clean)
 	}
 }
+
+// Garbage longer than the scan's read chunk, with whole records after it:
+// the reader must find the first of them (across chunk refills) and report
+// a middle corruption from the garbage's start.
+func TestLongGarbageBeforeValidRecords(t *testing.T) {
+	data := smallCapture(t, 6)
+	offs := frameOffsets(t, data)
+	garbage := make([]byte, scanChunkBytes+12345)
+	rng := rand.New(rand.NewPCG(6, 3))
+	for i := range garbage {
+		garbage[i] = byte(rng.Uint32())
+	}
+	var spliced []byte
+	spliced = append(spliced, data[:offs[3]]...)
+	spliced = append(spliced, garbage...)
+	spliced = append(spliced, data[offs[3]:]...)
+	recs, _, err := readAll(spliced)
+	var corrupt *CorruptError
+	if !errors.As(err, &corrupt) || len(recs) != 3 {
+		t.Fatalf("read %d records, err %v; want 3 and a CorruptError", len(recs), err)
+	}
+	if want := offs[3] + int64(len(garbage)); corrupt.Offset != offs[3] || corrupt.NextValidOffset != want {
+		t.Errorf("corruption at %d, next valid at %d; want %d and %d", corrupt.Offset, corrupt.NextValidOffset, offs[3], want)
+	}
+	// The same garbage as a tail is a torn tail.
+	recs, r, err := readAll(spliced[:offs[3]+int64(len(garbage))])
+	if err != nil || len(recs) != 3 || r.Damage() == nil || r.Damage().BytesDropped != int64(len(garbage)) {
+		t.Errorf("garbage tail: %d records, err %v, damage %v", len(recs), err, r.Damage())
+	}
+}
