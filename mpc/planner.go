@@ -94,12 +94,16 @@ type Budget func() bool
 //	Σ_k w_fig·s_k‖p(x_k) − r_k‖² + w_nom‖δ_k‖² + w_acc‖(δ_{k+1} − 2δ_k + δ_{k−1})/h_p²‖²
 //	+ w_fig·s_N‖(p(x_N) − p(x_{N−1})) − (r_N − r_{N−1})‖²
 //
-// with s_k = 1 and s_N = TerminalFactor. The smoothness term is on the
+// with s_k = 1, s_N = TerminalFactor, and δ_{−1} extrapolated from the last
+// two commands like q_{−1} below. The smoothness term is on the
 // correction, not on q itself: the cue's own accelerations are the
 // operator's design, and penalising them would make the planner correct a
 // figure that is exactly on its reference. Constraints, every step and
 // joint: lower+margin ≤ q_k ≤ upper−margin, |q_k − q_{k−1}| ≤ v_max·h_p,
-// |q_{k+1} − 2q_k + q_{k−1}| ≤ a_max·h_p², |δ| ≤ δ_max; q_0 is the command
+// |q_{k+1} − 2q_k + q_{k−1}| ≤ a_max·h_p², |δ| ≤ δ_max (on the knots, hence
+// on every step while |d0| ≤ δ_max, the correction being piecewise linear;
+// candidates whose bound the knots cannot reach within that box are left
+// out of the QP each tick); q_0 is the command
 // in force at t and q_{−1} = q_0 − h_p·(q(t) − q(t−Δt))/Δt. A constraint
 // that the warm start already breaks (after a guard clamp, say) is relaxed
 // to its current value for this tick so the QP is always feasible; the
