@@ -380,6 +380,9 @@ func (c *Config) Validate() error {
 	positive("stall-timeout-s", c.StallTimeoutS)
 	positive("coast-fade-s", c.CoastFadeS)
 	positive("max-latency-s", c.MaxLatencyS)
+	if c.MaxLatencyS > 1 {
+		bad("max-latency-s", "%v s is more than 1 s; markers that old cannot steer a figure (and predicting across them costs a model step per tick)", c.MaxLatencyS)
+	}
 	positive("prepare-budget-s", c.PrepareBudgetS)
 	positive("watch-min-interval-s", c.WatchMinIntervalS)
 	positive("shutdown-grace-s", c.ShutdownGraceS)

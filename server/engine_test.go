@@ -122,6 +122,12 @@ func FuzzObservation(f *testing.F) {
 	f.Add(uint64(0), 0.0, 0.0, 12, -1, 0.0, 10, 0, "crown", 50.0, -50.0, 1e9, "")
 	f.Add(uint64(0), 0.0, 0.0, 12, -1, 0.0, 0, -1, "", 0.0, 0.0, 0.0, "")
 	f.Add(uint64(0), 0.0, 0.0, 12, -1, 0.0, 10, -1, "", 0.0, 0.0, 0.0, "other")
+	// A clock far out, where a float64 cannot tell ticks apart, and a jump
+	// the estimator must not predict across step by step (both once hung
+	// the tick).
+	f.Add(uint64(0), 1e18, 1e18, 12, -1, 0.0, 10, -1, "", 0.0, 0.0, 0.0, "")
+	f.Add(uint64(0), 1e5, 1e5, 12, -1, 0.0, 10, -1, "", 0.0, 0.0, 0.0, "")
+	f.Add(uint64(0), 0.0, 0.0, 12, 0, 1e300, 10, -1, "", 0.0, 0.0, 0.0, "")
 
 	h, p, _ := newLiveHost(f)
 	lc := newLimitChecker(p.cell)

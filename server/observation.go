@@ -23,6 +23,17 @@ func badTick(code pb.TickErrorCode, field, format string, args ...any) tickError
 	return tickError{code: code, field: field, message: fmt.Sprintf(format, args...)}
 }
 
+// Range limits on observation values, beyond which they are garbage
+// rather than measurements.
+const (
+	// maxClockS: at 1e10 s a float64 still resolves 2e-6 s, far finer than
+	// a tick (and Unix time in seconds fits).
+	maxClockS = 1e10
+	// maxMagnitude bounds joint positions (rad or m) and marker
+	// coordinates (m).
+	maxMagnitude = 1e4
+)
+
 func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
 // validate checks one observation against the cell and the stream's
@@ -51,15 +62,21 @@ func (e *engine) validate(obs *pb.Observation) tickError {
 	if !finite(tc) {
 		return badTick(notFinite, "capture_time_s", "capture_time_s is %v; send the tracker frame's time on the cue clock in seconds", tc)
 	}
+	if math.Abs(t) > maxClockS {
+		return badTick(notFinite, "cue_time_s", "cue_time_s %v is beyond ±%g s, where a float64 cannot tell ticks apart; use a clock that starts near zero", t, maxClockS)
+	}
+	if math.Abs(tc) > maxClockS {
+		return badTick(notFinite, "capture_time_s", "capture_time_s %v is beyond ±%g s, where a float64 cannot tell ticks apart; use a clock that starts near zero", tc, maxClockS)
+	}
 	q := obs.GetMeasuredJointPositions()
 	if len(q) != e.nq {
 		return badTick(wrongSize, "measured_joint_positions",
 			"%d measured joint positions; cell %q has %d joints (%s ...)", len(q), e.cell.Name, e.nq, e.cell.JointNames()[0])
 	}
 	for i, v := range q {
-		if !finite(v) {
+		if !finite(v) || math.Abs(v) > maxMagnitude {
 			return badTick(notFinite, fmt.Sprintf("measured_joint_positions[%d]", i),
-				"measured position of joint %s is %v", e.cell.JointNames()[i], v)
+				"measured position of joint %s is %v, not a usable position", e.cell.JointNames()[i], v)
 		}
 	}
 	ms := obs.GetMarkers()
@@ -81,9 +98,9 @@ func (e *engine) validate(obs *pb.Observation) tickError {
 		e.markerSeen[k] = true
 		p := [3]float64{m.GetXM(), m.GetYM(), m.GetZM()}
 		for a, v := range p {
-			if !finite(v) {
+			if !finite(v) || math.Abs(v) > maxMagnitude {
 				return badTick(notFinite, fmt.Sprintf("markers[%d].%s", i, [3]string{"x_m", "y_m", "z_m"}[a]),
-					"marker %q coordinate is %v", m.GetMarkerId(), v)
+					"marker %q coordinate is %v m, not a usable position", m.GetMarkerId(), v)
 			}
 		}
 		e.markers = append(e.markers, mpc.MarkerObs{Marker: k, PosTrackerM: p})

@@ -15,6 +15,12 @@ import (
 // previewTicks is how many ticks after the next one a command previews.
 const previewTicks = mpc.DefaultPreviewTicks
 
+// maxEstimatorGapTicks is the longest gap between two marker frames, in
+// ticks, that the estimator predicts across; after a longer one (a clock
+// jump, a long occlusion of the whole stream) it starts afresh, so no
+// observation can make a tick's work grow without bound.
+const maxEstimatorGapTicks = 50
+
 // commandSlot is a Command with every sub-message allocated once, so that
 // filling it allocates nothing.
 type commandSlot struct {
@@ -136,6 +142,12 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 	// Estimator update, in every state, so the estimate has converged by
 	// the time the session goes live.
 	var estErr error
+	if te.ok() && e.est.Initialised() && obs.GetCaptureTimeS()-e.est.TimeS() > maxEstimatorGapTicks*e.tickS {
+		// Predicting across a long gap would cost one model step per tick
+		// of it; start the filter afresh instead.
+		e.est.Reset()
+		e.haveCapture = false
+	}
 	if te.ok() && (!e.haveCapture || obs.GetCaptureTimeS() > e.lastCapture) {
 		err := e.est.Observe(obs.GetCaptureTimeS(), q, e.markers, &e.estRep)
 		switch {
