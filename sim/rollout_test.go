@@ -129,3 +129,46 @@ func stringStretch(m *Model, s int, x, anchors []float64) float64 {
 	}
 	return math.Sqrt(d2) - st.RestLengthM
 }
+
+// RunWarm gives the same states as Run to within the step tolerance, with
+// fewer Newton iterations after a small change of the anchors, and
+// allocates nothing.
+func TestRolloutRunWarm(t *testing.T) {
+	const steps = 20
+	m, anchors := benchFigure(t, 20, 0.025)
+	xCur, xPrev := benchMotion(t, m, anchors)
+	ans := benchAnchors(anchors, steps)
+	cold, warm := m.NewRollout(steps), m.NewRollout(steps)
+	if err := warm.RunWarm(xCur, xPrev, ans); err != nil { // no previous run: cold
+		t.Fatal(err)
+	}
+	for i := range ans {
+		ans[i] += 1e-4 * float64(i%3-1) // a small planner-like change
+	}
+	if err := cold.Run(xCur, xPrev, ans); err != nil {
+		t.Fatal(err)
+	}
+	if err := warm.RunWarm(xCur, xPrev, ans); err != nil {
+		t.Fatal(err)
+	}
+	for k := 1; k <= steps; k++ {
+		for i, v := range warm.State(k) {
+			// Each run converged to 1e-10 m of mass-scaled residual; the
+			// states agree far better than 1e-8 m.
+			if math.Abs(v-cold.State(k)[i]) > 1e-8 {
+				t.Fatalf("state %d [%d]: warm %.12g cold %.12g", k, i, v, cold.State(k)[i])
+			}
+		}
+	}
+	if warm.NewtonIters() >= cold.NewtonIters() {
+		t.Errorf("warm start took %d Newton iterations, cold %d", warm.NewtonIters(), cold.NewtonIters())
+	}
+	t.Logf("Newton iterations over %d steps: cold %d, warm %d", steps, cold.NewtonIters(), warm.NewtonIters())
+	if a := testing.AllocsPerRun(5, func() {
+		if err := warm.RunWarm(xCur, xPrev, ans); err != nil {
+			t.Fatal(err)
+		}
+	}); a != 0 {
+		t.Errorf("RunWarm: %v allocations per call", a)
+	}
+}

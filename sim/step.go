@@ -83,6 +83,14 @@ func (ws *Workspace) NewtonIters() int { return ws.iters }
 // unchanged and ws holds no step. Slices of the wrong length panic.
 // Step allocates nothing.
 func (m *Model) Step(ws *Workspace, xNext, xCur, xPrev, anchorsNext []float64) error {
+	return m.step(ws, xNext, xCur, xPrev, anchorsNext, nil)
+}
+
+// step is Step with Newton's first guess taken from guess (length Dim)
+// instead of y when guess is not nil; a guess that does not lead to
+// convergence is retried from y, so the guess changes the work done, and
+// the result only within the tolerance.
+func (m *Model) step(ws *Workspace, xNext, xCur, xPrev, anchorsNext, guess []float64) error {
 	if ws.m != m {
 		panic("sim: Step: workspace belongs to another model")
 	}
@@ -94,8 +102,21 @@ func (m *Model) Step(ws *Workspace, xNext, xCur, xPrev, anchorsNext []float64) e
 	}
 	copy(ws.anchors, anchorsNext)
 	m.loadStates(ws, xCur, xPrev)
-	if err := m.newton(ws, ws.x, m.h, m.maxIters); err != nil {
-		return err
+	converged := false
+	if guess != nil && allFinite(guess) {
+		for i := range m.nNodes {
+			if !m.anchored[i] {
+				copy(ws.x[3*i:3*i+3], guess[3*i:3*i+3])
+			}
+		}
+		if converged = m.newton(ws, ws.x, m.h, m.maxIters) == nil; !converged {
+			copy(ws.x, ws.y)
+		}
+	}
+	if !converged {
+		if err := m.newton(ws, ws.x, m.h, m.maxIters); err != nil {
+			return err
+		}
 	}
 	if err := m.finishStep(ws); err != nil {
 		return err
