@@ -15,6 +15,17 @@
 // and an output value. Work is done in per-session workspaces sized once, so
 // the per-tick path allocates nothing in steady state.
 //
+// # Guard and QP
+//
+// The guard (guard.go) is the last step of every tick and the only one safety
+// depends on: from any history within bounds it returns targets within
+// position, velocity and acceleration limits from which each joint can still
+// brake to rest before its limits, for any wish including NaN and ±Inf, and
+// says which bounds acted. The planner's step QP is solved by QPSolver, a
+// dense Goldfarb–Idnani dual active-set method whose factorisation and
+// warm-start set are built in the prepare phase (Factorize, PrepareWarm) so
+// the feedback phase only finishes the solve (SolveFactorized).
+//
 // # Who may import it
 //
 // mpc imports sim only. server and client import it.
