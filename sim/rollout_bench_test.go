@@ -213,3 +213,40 @@ func BenchmarkRollout20(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkRollout20Warm is RunWarm alternating between two anchor paths
+// 0.1 mm apart, as a planner's later Gauss–Newton iterations would.
+func BenchmarkRollout20Warm(b *testing.B) {
+	const steps = 20
+	for _, n := range benchSizes {
+		b.Run(fmt.Sprintf("nodes=%d", n), func(b *testing.B) {
+			m, anchors := benchFigure(b, n, 0.025)
+			xCur, xPrev := benchMotion(b, m, anchors)
+			ans := benchAnchors(anchors, steps)
+			ans2 := append([]float64(nil), ans...)
+			for i := range ans2 {
+				ans2[i] += 1e-4 * float64(i%3-1)
+			}
+			r := m.NewRollout(steps)
+			if err := r.Run(xCur, xPrev, ans); err != nil {
+				b.Fatal(err)
+			}
+			b.ReportAllocs()
+			cpu0 := benchCPUSeconds()
+			iters, i := 0, 0
+			for b.Loop() {
+				a := ans
+				if i%2 == 1 {
+					a = ans2
+				}
+				i++
+				if err := r.RunWarm(xCur, xPrev, a); err != nil {
+					b.Fatal(err)
+				}
+				iters += r.NewtonIters()
+			}
+			b.ReportMetric(1e9*(benchCPUSeconds()-cpu0)/float64(b.N), "cpu-ns/op")
+			b.ReportMetric(float64(iters)/float64(b.N), "newton/run")
+		})
+	}
+}
