@@ -248,11 +248,20 @@ func (w *Writer) put(b []byte) error {
 // putRecord frames and appends rec. Called with mu held.
 func (w *Writer) putRecord(rec *tautlinev1.Record) error {
 	frame, err := appendFrame(w.frame[:0], rec)
-	w.frame = frame[:0]
+	w.keepScratch(frame)
 	if err != nil {
 		return err
 	}
 	return w.put(frame)
+}
+
+// keepScratch keeps an encoding buffer for the next record unless a large
+// record (the SessionStart with its files) grew it past what ticks need.
+func (w *Writer) keepScratch(frame []byte) {
+	if cap(frame) > 1<<20 {
+		frame = nil
+	}
+	w.frame = frame[:0]
 }
 
 // fail stops the recording with err unless it already stopped. Called with
@@ -311,7 +320,7 @@ func (w *Writer) write(rec *tautlinev1.Record) error {
 		rec = start
 	}
 	frame, err := appendFrame(w.frame[:0], rec)
-	w.frame = frame[:0]
+	w.keepScratch(frame)
 	if err != nil {
 		return err // refused; nothing written
 	}
