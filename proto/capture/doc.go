@@ -19,7 +19,8 @@
 //
 // A Writer appends through a buffer. It moves the buffer to the file and
 // fsyncs it every Settings.FlushInterval (a goroutine owned by the Writer,
-// stopped by Close), whenever the caller calls Sync, and on Close. Records
+// stopped by Close; Settings.SyncTicks injects the clock in tests), after a
+// SessionEnd, whenever the caller calls Sync, and on Close. Records
 // written before a Sync returned nil survive a crash of the process or the
 // machine. An fsync or write error is fatal to the recording: the Writer
 // stops, and every later Write, Sync and Close returns that error (it is
@@ -35,8 +36,10 @@
 // then io.EOF; Reader.Damage says where the damage starts, how many bytes
 // were dropped and why. Damage followed by a valid record is not a tail: it
 // is reported as a *CorruptError naming the offset, because silently skipping
-// records in the middle of a session would make a replay lie. Every length is
-// checked against the bytes that remain before anything is allocated.
+// records in the middle of a session would make a replay lie. (To tell the
+// two apart, the Reader looks for a valid frame within one maximal record
+// after the damage.) Every length is checked against the bytes that remain
+// before anything is allocated.
 // Repair rewrites a damaged capture as its longest valid prefix and keeps
 // the original aside.
 //
