@@ -560,3 +560,50 @@ func TestStepFromIndefiniteStart(t *testing.T) {
 		t.Errorf("rod length after the step %.6f m, want about 1 m", l)
 	}
 }
+
+// A weight dropped onto a slack string goes taut and slack again many
+// times, crossing the tension ramp each time: every step must converge,
+// and since this potential is convex (gravity is linear; φ is convex and
+// non-decreasing, |x − a| convex) backward Euler's energy can only fall
+// (the dissipation argument from U(x_t) ≥ U(x⁺) + ∇U(x⁺)·(x_t − x⁺)).
+func TestWeightBouncingOnStringConverges(t *testing.T) {
+	fig := &Figure{Nodes: []Node{{Name: "weight", MassKg: 0.05, PositionM: [3]float64{0, 0, 0.6}}}}
+	m, err := NewModel(fig, []StringLink{{Node: 0, RestLengthM: 0.5, StiffnessNPerM: 2000}}, ModelSettings{StepS: 0.002})
+	if err != nil {
+		t.Fatal(err)
+	}
+	anchors := []float64{0, 0, 1}
+	// Start 0.1 m above the string's reach, moving sideways and up.
+	xCur, xPrev := []float64{0, 0, 0.6}, []float64{-0.002 * 0.1, 0, 0.6 - 0.002*0.3}
+	xNext := make([]float64, 3)
+	ws := m.NewWorkspace()
+	kin, pot := m.Energy(xCur, xPrev, anchors)
+	last := kin + pot
+	taut, slack, catches := 0, 0, 0
+	wasTaut := false
+	for k := range 1500 {
+		if err := m.Step(ws, xNext, xCur, xPrev, anchors); err != nil {
+			t.Fatalf("step %d: %v", k, err)
+		}
+		kin, pot = m.Energy(xNext, xCur, anchors)
+		if kin+pot > last+1e-12 {
+			t.Errorf("step %d: energy rose by %.3g J", k, kin+pot-last)
+		}
+		last = kin + pot
+		isTaut := m.StringTension(0, xNext, anchors) > 0
+		if isTaut {
+			taut++
+		} else {
+			slack++
+		}
+		if isTaut && !wasTaut {
+			catches++
+		}
+		wasTaut = isTaut
+		xPrev, xCur, xNext = xCur, xNext, xPrev
+	}
+	if taut < 50 || slack < 50 || catches < 3 {
+		t.Errorf("the weight did not bounce: %d taut steps, %d slack, caught %d times", taut, slack, catches)
+	}
+	t.Logf("%d taut steps, %d slack, the string caught the weight %d times", taut, slack, catches)
+}
