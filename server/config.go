@@ -303,6 +303,11 @@ func (c *Config) ParseConfig(path string, data []byte) error {
 			off = typ.Offset
 		default:
 			off = dec.InputOffset()
+			if name, ok := strings.CutPrefix(err.Error(), "json: unknown field "); ok {
+				if i := bytes.Index(data, []byte(name)); i >= 0 {
+					off = int64(i)
+				}
+			}
 		}
 		line, col := lineColumn(data, off)
 		return fmt.Errorf("%s:%d:%d: %v", path, line, col, strings.TrimPrefix(err.Error(), "json: "))

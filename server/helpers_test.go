@@ -15,6 +15,7 @@ import (
 	"google.golang.org/grpc/credentials/insecure"
 	"google.golang.org/grpc/test/bufconn"
 
+	"tautline/proto/capture"
 	pb "tautline/proto/tautline/v1"
 	"tautline/sim"
 )
@@ -265,4 +266,13 @@ func capturesIn(t testing.TB, dir string) []string {
 		t.Fatal(err)
 	}
 	return m
+}
+
+func readCapture(t testing.TB, path string) []*pb.Record {
+	t.Helper()
+	recs, dmg, err := capture.ReadFile(path)
+	if err != nil || dmg != nil {
+		t.Fatalf("reading %s: %v, damage %v", path, err, dmg)
+	}
+	return recs
 }
