@@ -182,9 +182,8 @@ func netJoints(dst []float64, tS float64) {
 
 // TestEstimatorTickAllocatesNothing: after the first ticks, a whole
 // estimator tick (observe, record the command, predict to the apply time)
-// allocates nothing (testing.AllocsPerRun), on the demo cell and on a
-// 60-node net, whose 180×180 matrices are where gonum's matrix product
-// would go parallel and allocate.
+// allocates nothing (testing.AllocsPerRun), on the demo cell (with and
+// without Prepare) and on a 60-node net.
 func TestEstimatorTickAllocatesNothing(t *testing.T) {
 	for _, name := range []string{"demo", "demo+prepare", "net60"} {
 		var f *tickFixture
