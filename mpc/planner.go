@@ -68,8 +68,8 @@ type Budget func() bool
 // may be coarser than the tick Δt. States one tick apart are turned into
 // the model's pair (x(t), x(t−h_p)) by constant-velocity extrapolation
 // x(t−h_p) = x(t) − (h_p/Δt)(x(t) − x(t−Δt)), exact when h_p = Δt. The
-// correction δq(τ) is a piecewise-linear function of τ (see
-// KnotsPerJoint); the next tick's target is q̄(t+Δt) + δq(Δt), read off the
+// correction δq(τ) is a B-spline in τ (see KnotsPerJoint and
+// CorrectionDegree); the next tick's target is q̄(t+Δt) + δq(Δt), read off the
 // same function, and the preview is q̄(t+iΔt) + δq(iΔt).
 //
 // # Offset-free tracking
@@ -101,7 +101,8 @@ type Budget func() bool
 // figure that is exactly on its reference. Constraints, every step and
 // joint: lower+margin ≤ q_k ≤ upper−margin, |q_k − q_{k−1}| ≤ v_max·h_p,
 // |q_{k+1} − 2q_k + q_{k−1}| ≤ a_max·h_p², |δ| ≤ δ_max (on the knots, hence
-// on every step while |d0| ≤ δ_max, the correction being piecewise linear;
+// on every step while |d0| ≤ δ_max, the correction being a convex
+// combination of d0 and the knots;
 // candidates whose bound the knots cannot reach within that box are left
 // out of the QP each tick); q_0 is the command
 // in force at t and q_{−1} = q_0 − h_p·(q(t) − q(t−Δt))/Δt. A constraint
@@ -316,7 +317,7 @@ func NewPlanner(cell *sim.Cell, sched JointSchedule, ref MarkerReference, s Plan
 	for _, m := range cell.Markers {
 		p.markerNodes = append(p.markerNodes, m.Node)
 	}
-	p.basis = newCorrectionBasis(p.steps, p.knots, p.hp)
+	p.basis = newCorrectionBasis(p.steps, p.knots, set.CorrectionDegree, p.hp)
 	p.roll = model.NewRollout(p.steps)
 	p.cws = cell.NewWorkspace(model)
 	if ns, ok := ref.(NominalStates); ok {

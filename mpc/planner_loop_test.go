@@ -100,7 +100,7 @@ func TestPlannerNoPushNoCorrection(t *testing.T) {
 // planner brings every marker back within 15 mm of its reference within
 // 1.5 s and holds it there, and its summed squared marker error over the
 // 2 s is at most 70% of open-loop playback's. Measured when written (2-core
-// machine, deterministic): 5.9 mm against open loop's 22 mm, ratio 0.54;
+// machine, deterministic): 6.8 mm against open loop's 22 mm, ratio 0.40;
 // the bounds leave room for small numerical changes in sim, not for a
 // planner that stops acting. With a 0.2 m/s push the ratio was 0.68 (before
 // offset-free tracking): the

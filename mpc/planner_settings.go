@@ -19,6 +19,9 @@ const (
 	// DefaultKnotsPerJoint is the number of correction knots per joint over
 	// the horizon (see PlannerSettings.KnotsPerJoint).
 	DefaultKnotsPerJoint = 4
+	// DefaultCorrectionDegree is the degree of the correction's B-spline
+	// (see PlannerSettings.CorrectionDegree).
+	DefaultCorrectionDegree = 2
 	// DefaultTrackingWeight weighs the squared marker error, per m² per
 	// marker coordinate per step.
 	DefaultTrackingWeight = 1.0
@@ -63,14 +66,18 @@ type PlannerSettings struct {
 	// HorizonStepS is h_p, the planner model's time step, s. It may be
 	// coarser than the cell's tick. 0: cell, else max(tick, DefaultHorizonStepS).
 	HorizonStepS float64
-	// KnotsPerJoint is the number of correction knots per joint. The
-	// correction δq(τ) over the horizon τ ∈ [0, N·h_p] is piecewise linear:
-	// it starts at the correction currently applied and passes through
-	// KnotsPerJoint knots evenly spaced in time, the last at the horizon's
-	// end. KnotsPerJoint = HorizonSteps gives one free correction per step.
+	// KnotsPerJoint is the number of free B-spline control points
+	// ("knots") of each joint's correction δq(τ) over the horizon
+	// τ ∈ [0, N·h_p]; the curve starts at the correction currently
+	// applied (see correctionBasis). With CorrectionDegree 1 and
+	// KnotsPerJoint = HorizonSteps there is one free correction per step.
 	// 0: DefaultKnotsPerJoint (capped at HorizonSteps). The choice is
 	// measured in BenchmarkPlannerKnots.
 	KnotsPerJoint int
+	// CorrectionDegree is the B-spline degree of the correction: 1 is
+	// piecewise linear, 2 (C¹) spreads the correction's acceleration over
+	// the horizon, 3 is C². 0: DefaultCorrectionDegree.
+	CorrectionDegree int
 	// TrackingWeight w_fig, per m² of marker error. 0: cell, else default.
 	TrackingWeight float64
 	// NominalWeight w_nom, per rad² of correction. 0: cell, else default.
@@ -136,6 +143,7 @@ func (s PlannerSettings) resolve(cell *sim.Cell) (PlannerSettings, error) {
 	}
 	r.StepTolerance = pickF(s.StepTolerance, 0, DefaultStepToleranceRad)
 	r.KnotsPerJoint = pickI(s.KnotsPerJoint, 0, min(DefaultKnotsPerJoint, r.HorizonSteps))
+	r.CorrectionDegree = pickI(s.CorrectionDegree, 0, DefaultCorrectionDegree)
 
 	pos := func(name string, v float64) error {
 		if !(v > 0) || math.IsInf(v, 0) {
@@ -150,6 +158,10 @@ func (s PlannerSettings) resolve(cell *sim.Cell) (PlannerSettings, error) {
 		return r, fmt.Errorf("mpc: planner horizon must have at least 1 step, got %d", r.HorizonSteps)
 	case r.KnotsPerJoint < 1 || r.KnotsPerJoint > r.HorizonSteps:
 		return r, fmt.Errorf("mpc: planner knots per joint must be in [1, %d] (the horizon steps), got %d", r.HorizonSteps, r.KnotsPerJoint)
+	case r.CorrectionDegree < 1 || r.CorrectionDegree > 3:
+		return r, fmt.Errorf("mpc: planner correction degree must be 1, 2 or 3, got %d", r.CorrectionDegree)
+	case r.KnotsPerJoint < r.CorrectionDegree:
+		return r, fmt.Errorf("mpc: planner needs at least %d knots per joint for degree %d, got %d", r.CorrectionDegree, r.CorrectionDegree, r.KnotsPerJoint)
 	case r.MaxIterations < 1:
 		return r, fmt.Errorf("mpc: planner max iterations must be ≥ 1, got %d", r.MaxIterations)
 	}
