@@ -13,7 +13,8 @@ import (
 type AnchorFunc func(dst, joints []float64)
 
 // FigureProcess is the Process of a sim figure model whose anchors are
-// placed by a function of the joints.
+// placed by a function of the joints. It holds the scratch of its steps:
+// give each estimator its own (the model may be shared).
 type FigureProcess struct {
 	model     *sim.Model
 	ws        *sim.Workspace // rest poses
