@@ -17,6 +17,7 @@ import (
 	"gonum.org/v1/plot/vg"
 
 	"tautline/client"
+	"tautline/server"
 )
 
 func init() {
@@ -56,6 +57,7 @@ type demoFlags struct {
 	cell, cue, profile string
 	durationS          float64
 	fast               bool
+	prepareBudgetS     float64
 }
 
 func runDemo(args []string, stdout, stderr io.Writer) error {
@@ -64,6 +66,7 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&f.out, "out", "demo-out", "directory to write into (created if missing)")
 	fs.Float64Var(&f.durationS, "duration-s", 0, "play only this much of the cue, s (0: all of it; tests use a few seconds)")
 	fs.BoolVar(&f.fast, "fast", false, "run as fast as the daemon answers instead of at the tick rate (latency figures then include queueing)")
+	fs.Float64Var(&f.prepareBudgetS, "prepare-budget-s", 0, "the daemon's planner prepare budget per tick, s (0: the daemon's default; a large value makes runs repeat bit for bit)")
 	fs.StringVar(&f.cell, "cell", "testdata/demo/cell.json", "demo cell file")
 	fs.StringVar(&f.cue, "cue", "testdata/demo/cue.csv", "demo cue file")
 	fs.StringVar(&f.profile, "profile", "testdata/demo/standard.mismatch.json", "mismatch profile")
@@ -74,8 +77,8 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 		fs.Usage()
 		return fmt.Errorf("%w: demo takes no arguments (got %q)", errUsage, fs.Args())
 	}
-	if f.durationS < 0 {
-		return fmt.Errorf("%w: -duration-s %v is negative", errUsage, f.durationS)
+	if f.durationS < 0 || f.prepareBudgetS < 0 {
+		return fmt.Errorf("%w: -duration-s and -prepare-budget-s must not be negative", errUsage)
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
@@ -238,7 +241,11 @@ func demo(ctx context.Context, f *demoFlags, stdout io.Writer) (*demoSummary, er
 // history) and differ only in whether the corrections are applied.
 func demoRun1(ctx context.Context, f *demoFlags, in *simInputs, open bool, daemonDir string, stdout io.Writer) (*client.SimResult, error) {
 	mode := modeName(open)
-	dm, err := startDaemon(f.cell, daemonDir, nil)
+	dm, err := startDaemon(f.cell, daemonDir, func(cfg *server.Config) {
+		if f.prepareBudgetS > 0 {
+			cfg.PrepareBudgetS = f.prepareBudgetS
+		}
+	})
 	if err != nil {
 		return nil, err
 	}

@@ -98,22 +98,45 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 }
 
 // writeEmbedded writes a capture's embedded files under dir, keeping their
-// relative layout, and returns the cell file's path there.
+// layout relative to the cell file (which the cell file's references need),
+// and returns the cell file's path there.
 func writeEmbedded(dir string, e *client.Embedded) (string, error) {
-	for name, data := range e.Files {
-		rel := filepath.Clean(filepath.FromSlash(strings.TrimLeft(name, "/")))
-		if rel == "." || strings.HasPrefix(rel, "..") {
-			return "", fmt.Errorf("embedded file name %q cannot be written under a directory", name)
+	cellDir := filepath.Dir(filepath.FromSlash(e.CellName))
+	rels := map[string]string{}
+	depth := 0
+	for name := range e.Files {
+		rel, err := filepath.Rel(cellDir, filepath.FromSlash(name))
+		if err != nil {
+			return "", fmt.Errorf("embedded file %q cannot be placed relative to the cell file %q: %v", name, e.CellName, err)
 		}
-		path := filepath.Join(dir, rel)
+		up := 0
+		for _, part := range strings.Split(rel, string(filepath.Separator)) {
+			if part != ".." {
+				break
+			}
+			up++
+		}
+		depth = max(depth, up)
+		rels[name] = rel
+	}
+	// Files above the cell's directory need that many levels above it.
+	base := dir
+	for i := 0; i < depth; i++ {
+		base = filepath.Join(base, fmt.Sprintf("up%d", i))
+	}
+	for name, rel := range rels {
+		path := filepath.Join(base, rel)
+		if !strings.HasPrefix(path, filepath.Clean(dir)+string(filepath.Separator)) {
+			return "", fmt.Errorf("embedded file name %q leaves the replay directory", name)
+		}
 		if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 			return "", err
 		}
-		if err := os.WriteFile(path, data, 0o644); err != nil {
+		if err := os.WriteFile(path, e.Files[name], 0o644); err != nil {
 			return "", err
 		}
 	}
-	return filepath.Join(dir, filepath.Clean(filepath.FromSlash(strings.TrimLeft(e.CellName, "/")))), nil
+	return filepath.Join(base, rels[e.CellName]), nil
 }
 
 func printReplay(w io.Writer, run *client.CaptureRun, r *client.ReplayResult) {

@@ -191,13 +191,7 @@ type progress struct {
 }
 
 func newProgress(w io.Writer, label string) *progress {
-	p := &progress{w: w, label: label, lastLine: -1e9}
-	if f, ok := w.(*os.File); ok {
-		if st, err := f.Stat(); err == nil && st.Mode()&os.ModeCharDevice != 0 {
-			p.tty = true
-		}
-	}
-	return p
+	return &progress{w: w, label: label, lastLine: -1e9, tty: isTerminal(w)}
 }
 
 func (p *progress) update(s client.SimProgress) {
