@@ -77,6 +77,10 @@
 // (one direction), Workspace.SensitivityMatrices (full Jacobians) and
 // Rollout.Tangent (K directions through a whole rollout, factors kept per
 // step). All are checked against central differences from gonum's diff/fd.
+// Parameter derivatives (string and rod rest lengths and stiffnesses,
+// node masses and drags, rod damping; Param) use the same factors:
+// Workspace.ParamSensitivity for one step, Rollout.ParamTangent through a
+// run, for fitting a model to recorded motion.
 // Rollout.RunWarm starts each step's Newton iterations from the previous
 // run's states, which saves iterations when a planner re-runs a horizon
 // with slightly changed anchors.

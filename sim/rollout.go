@@ -13,14 +13,16 @@ import (
 // reused; Run and Tangent allocate nothing after their first call with a
 // given number of directions.
 type Rollout struct {
-	m      *Model
-	steps  int
-	ws     *Workspace
-	states []float64 // (steps+2) × Dim: x_{−1}, x_0, …, x_steps
-	derivs []stepDerivs
-	ran    bool
-	iters  int // Newton iterations of the last run
-	rhs    []float64
+	m       *Model
+	steps   int
+	ws      *Workspace
+	states  []float64 // (steps+2) × Dim: x_{−1}, x_0, …, x_steps
+	derivs  []stepDerivs
+	ran     bool
+	iters   int // Newton iterations of the last run
+	rhs     []float64
+	anchors []float64  // steps × 3·NumAnchors, those of the last run
+	pin     stepInputs // scratch for ParamTangent
 }
 
 // NewRollout returns a rollout of the given number of steps (≥ 1).
@@ -31,6 +33,7 @@ func (m *Model) NewRollout(steps int) *Rollout {
 	r := &Rollout{m: m, steps: steps, ws: m.NewWorkspace()}
 	r.states = make([]float64, (steps+2)*m.Dim())
 	r.derivs = make([]stepDerivs, steps)
+	r.anchors = make([]float64, steps*3*len(m.strs))
 	for k := range r.derivs {
 		r.derivs[k].init(m)
 	}
@@ -78,6 +81,7 @@ func (r *Rollout) run(x0, xm1, anchors []float64, warm bool) error {
 	}
 	r.ran = false
 	r.iters = 0
+	copy(r.anchors, anchors)
 	copy(r.slot(-1), xm1)
 	copy(r.slot(0), x0)
 	for k := range r.steps {

@@ -279,3 +279,22 @@ func sizedRows(a *mat.Dense, r, c int, name string) rows {
 	}
 	return denseRows(a, r, c, name)
 }
+
+// ParamSensitivity writes into dst (length Dim) the derivative of the last
+// step's result with respect to one model parameter, x_t, x_{t−1} and the
+// anchors held fixed: dx⁺/dθ = −A⁻¹·∂G/∂θ. It panics if ws holds no
+// successful step or the parameter does not exist. It allocates nothing.
+func (ws *Workspace) ParamSensitivity(dst []float64, p Param) {
+	m := ws.m
+	if !ws.valid {
+		panic("sim: ParamSensitivity: the workspace holds no successful step")
+	}
+	if len(dst) != m.Dim() {
+		panic("sim: ParamSensitivity: vector of the wrong length")
+	}
+	m.checkParam(p)
+	clear(ws.rhs)
+	m.paramGrad(ws.rhs, 1, ws.x, &ws.in, p)
+	ws.d.chol.solve(ws.rhs, 1)
+	m.scatterNeg(rows{dst, 1}, ws.rhs, 1)
+}
