@@ -34,9 +34,10 @@ lint: vet
 bench:
 	$(GO) test -run '^$$' -bench . -benchmem -benchtime $(BENCHTIME) $(PKGS)
 
-## demo: the most complete thing that exists, on the built-in demo data.
+## demo: open loop against closed loop on the invented demo cell; writes demo-out/.
 demo:
 	$(GO) run ./client/cmd/tautline check testdata/demo/cell.json testdata/demo/cue.csv
+	$(GO) run ./client/cmd/tautline demo --out demo-out
 
 ## proto: regenerate proto/tautline/v1/*.pb.go with pinned tools (installs missing ones).
 proto:
