@@ -93,12 +93,14 @@
 // factorisation is the package's own band Cholesky (band.go) with a row
 // layout that solves many right-hand sides in contiguous inner loops.
 // BenchmarkFactorSolve24 (factorise and solve 24 right-hand sides on the
-// benchmark figures' step Hessians; CPU time per operation on the shared
-// 2-core machine) measured it against gonum's mat.BandCholesky, which
-// also estimates a condition number at every factorisation, and dense
-// mat.Cholesky: 22, 70 and 200 µs at 20, 60 and 150 nodes against 70, 190
-// and 560 µs for gonum's band routine and 58, 530 and 2500 µs for dense
-// (whose cost grows as n³ where the band one grows as n).
+// benchmark figures' step Hessians) measured it against gonum's
+// mat.BandCholesky, which also estimates a condition number at every
+// factorisation, and dense mat.Cholesky. CPU time per operation in one
+// run on the shared 2-core machine: 21, 49 and 126 µs at 20, 60 and 150
+// nodes for the own routine, 55, 188 and 443 µs for gonum's band routine
+// and 48, 307 and 2130 µs for dense (whose cost grows as n³ where the band
+// ones grow as n). Runs under different load moved these by up to 1.5×
+// but never changed the order.
 //
 // # Workspaces
 //
