@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"image/color"
 	"io"
+	"math"
 	"os"
 	"path/filepath"
 
@@ -13,6 +14,8 @@ import (
 	"gonum.org/v1/plot/vg/draw"
 	"gonum.org/v1/plot/vg/vgimg"
 	"gonum.org/v1/plot/vg/vgsvg"
+
+	"tautline/client"
 )
 
 // series is one labelled line.
@@ -161,6 +164,17 @@ func histogram(title, xLabel string, labels []string, samples [][]float64, bins 
 	}
 	if first {
 		return p, nil
+	}
+	// A long tail would squeeze the body into a few bins: the range ends
+	// at 1.5 times the largest 99th percentile and the last bin counts
+	// everything beyond.
+	var p99 float64
+	for _, s := range samples {
+		p99 = math.Max(p99, client.SpreadOf(s, 1).P99)
+	}
+	if cut := 1.5 * p99; cut > lo && cut < hi {
+		hi = cut
+		p.Title.Text += fmt.Sprintf(" (last bin: ≥ %.3g)", hi-(hi-lo)/float64(bins))
 	}
 	if hi <= lo {
 		hi = lo + 1e-3
