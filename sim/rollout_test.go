@@ -13,8 +13,23 @@ import (
 // differences (gonum diff/fd) of whole rollouts: d(all states)/d(anchors
 // over the horizon), d(all states)/d(x0) and d(all states)/d(x_{−1}).
 func TestRolloutTangentAgainstFiniteDifferences(t *testing.T) {
-	const steps = 6
 	m, anchors := puppetModel(t, ModelSettings{GradTol: 1e-15})
+	t.Run("free", func(t *testing.T) { checkRolloutTangent(t, m, anchors) })
+	// The same puppet with its left foot pinned and its left hand's
+	// string tied to that foot: anchored rows, columns and strings.
+	fig := m.Figure()
+	fig.Nodes[fig.NodeIndex("l_foot")].Anchored = true
+	strs := m.Strings()
+	strs[1].Node = fig.NodeIndex("l_foot")
+	pinned, err := NewModel(fig, strs, ModelSettings{StepS: m.StepS(), GradTol: 1e-15})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Run("pinned", func(t *testing.T) { checkRolloutTangent(t, pinned, anchors) })
+}
+
+func checkRolloutTangent(t *testing.T, m *Model, anchors []float64) {
+	const steps = 6
 	n, na := m.Dim(), 3*m.NumAnchors()
 	rest := make([]float64, n)
 	if err := m.RestPose(m.NewWorkspace(), rest, anchors); err != nil {
