@@ -95,12 +95,11 @@
 // BenchmarkFactorSolve24 (factorise and solve 24 right-hand sides on the
 // benchmark figures' step Hessians) measured it against gonum's
 // mat.BandCholesky, which also estimates a condition number at every
-// factorisation, and dense mat.Cholesky. CPU time per operation in one
-// run on the shared 2-core machine: 21, 49 and 126 µs at 20, 60 and 150
-// nodes for the own routine, 55, 188 and 443 µs for gonum's band routine
-// and 48, 307 and 2130 µs for dense (whose cost grows as n³ where the band
-// ones grow as n). Runs under different load moved these by up to 1.5×
-// but never changed the order.
+// factorisation, and dense mat.Cholesky. CPU time per operation, two runs
+// on the shared 2-core machine: 12, 40 and 100 µs at 20, 60 and 150 nodes
+// for the own routine, 52, 158 and 416 µs for gonum's band routine and
+// 46, 308 and 2150 µs for dense (whose cost grows as n³ where the band
+// ones grow as n).
 //
 // # Workspaces
 //
