@@ -69,8 +69,10 @@ type Budget func() bool
 // the model's pair (x(t), x(t−h_p)) by constant-velocity extrapolation
 // x(t−h_p) = x(t) − (h_p/Δt)(x(t) − x(t−Δt)), exact when h_p = Δt. The
 // correction δq(τ) is a B-spline in τ (see KnotsPerJoint and
-// CorrectionDegree); the next tick's target is q̄(t+Δt) + δq(Δt), read off the
-// same function, and the preview is q̄(t+iΔt) + δq(iΔt).
+// CorrectionDegree), evaluated at the steps, δ_k = δq(k·h_p). The next
+// tick's target is q̄(t+Δt) + δ(Δt) and the preview q̄(t+iΔt) + δ(iΔt),
+// where δ(τ) interpolates the step values linearly: the model sees the
+// joints only at step ends, so that is the path the plan was computed for.
 //
 // # Offset-free tracking
 //

@@ -158,7 +158,7 @@ func runChain(t testing.TB, control bool, s PlannerSettings) chainRun {
 // TestPlannerChainBenchmark: after the kick the planner (the cell's
 // settings: 40 steps of 50 ms, a 2 s horizon, one Gauss-Newton iteration
 // per tick) brings the chain back towards rest. Measured when written: at
-// 5 s the largest free-mass distance from rest is 0.323 m with the
+// 5 s the largest free-mass distance from rest is 0.328 m with the
 // planner against 1.087 m for nominal playback (the gantry driven straight
 // back home through the guard), and the integrated squared deviation
 // 22.3 m²·s against 29.3 m²·s. The chain is soft (the top spring carries

@@ -155,16 +155,42 @@ func (p *Planner) writePlan(dst *Plan) {
 }
 
 // targetAt writes q̄(t+τ) + δ(τ) into q and δ(τ) into corr (if not nil).
+// δ(τ) is interpolated linearly between the step values δ_k = δ(k·h_p):
+// the model sees the joints only at the step ends and moves the anchors
+// between them as backward Euler does, so this is the path the plan was
+// computed for (the B-spline itself can bend between steps when its spans
+// are as short as a step). Beyond the horizon δ holds δ_N.
 func (p *Planner) targetAt(q, corr []float64, tau float64) {
 	st := &p.st
 	p.sched.PositionTo(st.qbarT, st.tS+tau)
+	u := tau / p.hp
+	k := int(math.Floor(u))
+	f := u - float64(k)
+	if k >= p.steps {
+		k, f = p.steps, 0
+	}
+	if k < 0 {
+		k, f = 0, 0
+	}
 	for i := range p.nq {
-		d := p.basis.valueAt(tau, i, p.nq, st.d0, st.c)
+		d := (1-f)*p.stepCorrection(k, i) + f*p.stepCorrection(min(k+1, p.steps), i)
 		q[i] = st.qbarT[i] + d
 		if corr != nil {
 			corr[i] = d
 		}
 	}
+}
+
+// stepCorrection returns δ_k of joint i at the current knots.
+func (p *Planner) stepCorrection(k, i int) float64 {
+	st := &p.st
+	v := p.stepWeight(k, -1) * st.d0[i]
+	for j := range p.knots {
+		if w := p.stepWeight(k, j); w != 0 {
+			v += w * st.c[j*p.nq+i]
+		}
+	}
+	return v
 }
 
 func (p *Planner) checkPlan(dst *Plan) {
