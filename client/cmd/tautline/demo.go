@@ -70,19 +70,20 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&f.cell, "cell", "testdata/demo/cell.json", "demo cell file")
 	fs.StringVar(&f.cue, "cue", "testdata/demo/cue.csv", "demo cue file")
 	fs.StringVar(&f.profile, "profile", "testdata/demo/standard.mismatch.json", "mismatch profile")
-	if err := parseFlags(fs, args); err != nil {
+	args, err := parseInterspersed(fs, args)
+	if err != nil {
 		return err
 	}
-	if fs.NArg() != 0 {
+	if len(args) != 0 {
 		fs.Usage()
-		return fmt.Errorf("%w: demo takes no arguments (got %q)", errUsage, fs.Args())
+		return fmt.Errorf("%w: demo takes no arguments (got %q)", errUsage, args)
 	}
 	if f.durationS < 0 || f.prepareBudgetS < 0 {
 		return fmt.Errorf("%w: -duration-s and -prepare-budget-s must not be negative", errUsage)
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
-	_, err := demo(ctx, &f, stdout)
+	_, err = demo(ctx, &f, stdout)
 	return err
 }
 

@@ -45,25 +45,26 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 	d.bind(fs, "start a daemon in this process serving the capture's cell")
 	fast := fs.Bool("fast", false, "send each observation as soon as the previous command is back")
 	maxDiff := fs.Float64("max-diff", 0, "fail if any joint target differs from the recording by more than this, rad (0: report only)")
-	if err := parseFlags(fs, args); err != nil {
+	args, err := parseInterspersed(fs, args)
+	if err != nil {
 		return err
 	}
-	if fs.NArg() != 1 {
+	if len(args) != 1 {
 		fs.Usage()
-		return fmt.Errorf("%w: want one capture file, got %d arguments", errUsage, fs.NArg())
+		return fmt.Errorf("%w: want one capture file, got %d arguments", errUsage, len(args))
 	}
 	if *maxDiff < 0 {
 		return fmt.Errorf("%w: -max-diff %v is negative", errUsage, *maxDiff)
 	}
-	run, err := client.ReadCaptureRun(fs.Arg(0))
+	run, err := client.ReadCaptureRun(args[0])
 	if err != nil {
 		return err
 	}
 	if run.Damage != nil {
-		fmt.Fprintf(stderr, "tautline replay: %s: %v; replaying the records before it\n", fs.Arg(0), run.Damage)
+		fmt.Fprintf(stderr, "tautline replay: %s: %v; replaying the records before it\n", args[0], run.Damage)
 	}
 	if run.LiveFrom < 0 {
-		return fmt.Errorf("%s: the recorded session never went live; nothing to replay", fs.Arg(0))
+		return fmt.Errorf("%s: the recorded session never went live; nothing to replay", args[0])
 	}
 	cellPath := ""
 	if d.addr == "" {
@@ -73,7 +74,7 @@ func runReplay(args []string, stdout, stderr io.Writer) error {
 		}
 		defer os.RemoveAll(dir)
 		if cellPath, err = writeEmbedded(dir, run.Embedded); err != nil {
-			return fmt.Errorf("%s: %w", fs.Arg(0), err)
+			return fmt.Errorf("%s: %w", args[0], err)
 		}
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)

@@ -48,19 +48,20 @@ checker; summary.json counts the violations.`
 func runReport(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("report", "--out DIR CAPTURE...", reportHelp, stderr)
 	out := fs.String("out", "", "directory to write the report into (created if missing; required)")
-	if err := parseFlags(fs, args); err != nil {
+	args, err := parseInterspersed(fs, args)
+	if err != nil {
 		return err
 	}
 	if *out == "" {
 		fs.Usage()
 		return fmt.Errorf("%w: -out DIR is required", errUsage)
 	}
-	if fs.NArg() == 0 {
+	if len(args) == 0 {
 		fs.Usage()
 		return fmt.Errorf("%w: name at least one capture file", errUsage)
 	}
 	var runs []*client.CaptureRun
-	for _, path := range fs.Args() {
+	for _, path := range args {
 		r, err := client.ReadCaptureRun(path)
 		if err != nil {
 			return err

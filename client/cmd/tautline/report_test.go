@@ -14,8 +14,9 @@ import (
 func TestReportOfTheDemoCaptures(t *testing.T) {
 	demoDir := runShortDemo(t)
 	out := t.TempDir()
-	code, stdout, errOut := runCLI("report", "-out", out,
-		filepath.Join(demoDir, "open-loop.tlcap"), filepath.Join(demoDir, "closed-loop.tlcap"))
+	// In the order: the captures, then --out.
+	code, stdout, errOut := runCLI("report",
+		filepath.Join(demoDir, "open-loop.tlcap"), filepath.Join(demoDir, "closed-loop.tlcap"), "--out", out)
 	if code != 0 {
 		t.Fatalf("exit %d\n%s\n%s", code, stdout, errOut)
 	}

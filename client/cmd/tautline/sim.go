@@ -67,19 +67,20 @@ func runSim(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&f.capture, "capture", "", "capture file to write (must not exist); empty: sim-<mode>-<time>.tlcap here")
 	fs.BoolVar(&f.noCapture, "no-capture", false, "record nothing")
 	fs.StringVar(&f.cueName, "cue-name", "sim", "name to load the cue under on the daemon")
-	if err := parseFlags(fs, args); err != nil {
+	args, err := parseInterspersed(fs, args)
+	if err != nil {
 		return err
 	}
-	if fs.NArg() != 2 {
+	if len(args) != 2 {
 		fs.Usage()
-		return fmt.Errorf("%w: want a cell file and a cue file, got %d arguments", errUsage, fs.NArg())
+		return fmt.Errorf("%w: want a cell file and a cue file, got %d arguments", errUsage, len(args))
 	}
 	if f.durationS < 0 {
 		return fmt.Errorf("%w: -duration-s %v is negative", errUsage, f.durationS)
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
-	res, err := simulate(ctx, &f, fs.Arg(0), fs.Arg(1), stdout)
+	res, err := simulate(ctx, &f, args[0], args[1], stdout)
 	if err != nil {
 		return err
 	}

@@ -44,12 +44,13 @@ func runWatch(args []string, stdout, stderr io.Writer) error {
 	fs.StringVar(&d.keyFile, "tls-key", "", "client private key (PEM)")
 	interval := fs.Float64("interval-s", 0, "least time between updates that are not state changes, s (0: the daemon's default)")
 	count := fs.Int("count", 0, "stop after this many updates (0: run until the stream ends)")
-	if err := parseFlags(fs, args); err != nil {
+	args, err := parseInterspersed(fs, args)
+	if err != nil {
 		return err
 	}
-	if fs.NArg() != 1 {
+	if len(args) != 1 {
 		fs.Usage()
-		return fmt.Errorf("%w: want the name of one cell, got %d arguments", errUsage, fs.NArg())
+		return fmt.Errorf("%w: want the name of one cell, got %d arguments", errUsage, len(args))
 	}
 	if d.addr == "" {
 		return fmt.Errorf("%w: -addr is empty; watch needs a running daemon", errUsage)
@@ -64,7 +65,7 @@ func runWatch(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	defer conn.Close()
-	return watch(ctx, conn.Client, fs.Arg(0), *interval, *count, stdout)
+	return watch(ctx, conn.Client, args[0], *interval, *count, stdout)
 }
 
 func watch(ctx context.Context, c *client.Client, cell string, intervalS float64, count int, stdout io.Writer) error {
