@@ -50,3 +50,33 @@ proto-check:
 
 clean:
 	rm -rf bin
+
+## certs: a development CA, server and client (controller, watcher)
+## certificates in CERTS_DIR, for trying TLS out. Production certificates
+## come from the site's own PKI.
+CERTS_DIR     ?= certs
+.PHONY: certs
+certs:
+	$(GO) run ./client/cmd/tautline certs -out $(CERTS_DIR)
+
+## vuln: govulncheck against an offline vulnerability database built from
+## the golang.org/x/vulndb module (the checker's online database may not
+## be reachable). The database is built once per VULNDB_VERSION in the Go
+## build cache. Exits non-zero when the code calls a known vulnerability.
+GOVULNCHECK    := golang.org/x/vuln/cmd/govulncheck@v1.9.0
+VULNDB_VERSION ?= v0.0.0-20261105234957-e22db6528018
+VULNDB_DIR     ?= $(shell $(GO) env GOCACHE)/tautline-vulndb/$(VULNDB_VERSION)
+.PHONY: vuln
+vuln:
+	$(GO) install $(GOVULNCHECK)
+	@if [ ! -f "$(VULNDB_DIR)/index/db.json" ]; then \
+		set -e; tmp=$$(mktemp -d); \
+		dir=$$(cd $$tmp && $(GO) mod download -json golang.org/x/vulndb@$(VULNDB_VERSION) | \
+			sed -n 's/^[[:space:]]*"Dir": "\(.*\)",*$$/\1/p'); \
+		test -d "$$dir/data/osv" || { echo "vuln: golang.org/x/vulndb@$(VULNDB_VERSION) has no data/osv"; exit 1; }; \
+		echo "vuln: indexing $$dir/data/osv into $(VULNDB_DIR)"; \
+		rm -rf "$(VULNDB_DIR)"; mkdir -p "$(VULNDB_DIR)"; \
+		(cd $$tmp && $(GO) run golang.org/x/vulndb/cmd/indexdb@$(VULNDB_VERSION) -vulns "$$dir/data/osv" -out "$(VULNDB_DIR)"); \
+		rm -rf $$tmp; \
+	fi
+	$(GOBIN)/govulncheck -db file://$(VULNDB_DIR) $(PKGS)
