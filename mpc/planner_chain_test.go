@@ -39,7 +39,6 @@ type chainRun struct {
 	cost        float64 // ∫ Σ‖x_i − x_i,rest‖² dt over the free masses, m²·s
 	finalDevM   float64 // largest free-mass distance from rest at 5 s
 	finalSpeed  float64 // largest free-mass speed at 5 s, m/s
-	worstTickNs float64
 	ticks       int
 	statuses    [8]int
 	iterations  int
