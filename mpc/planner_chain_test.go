@@ -36,12 +36,12 @@ func (r restReference) MarkersTo(dst []float64, _ float64) { copy(dst, r.m) }
 var chainDebug = false
 
 type chainRun struct {
-	cost        float64 // ∫ Σ‖x_i − x_i,rest‖² dt over the free masses, m²·s
-	finalDevM   float64 // largest free-mass distance from rest at 5 s
-	finalSpeed  float64 // largest free-mass speed at 5 s, m/s
-	ticks       int
-	statuses    [8]int
-	iterations  int
+	cost       float64 // ∫ Σ‖x_i − x_i,rest‖² dt over the free masses, m²·s
+	finalDevM  float64 // largest free-mass distance from rest at 5 s
+	finalSpeed float64 // largest free-mass speed at 5 s, m/s
+	ticks      int
+	statuses   [8]int
+	iterations int
 }
 
 func loadChain(t testing.TB) (*sim.Cell, []float64, []float64) {
