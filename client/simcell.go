@@ -26,7 +26,9 @@ type SimSettings struct {
 	CueFileName string // quoted in messages and the capture; "" means CueName+".csv"
 
 	// Profile is the mismatch applied to the plant; nil means a perfect
-	// model and tracker.
+	// model and tracker. Its pushes happen at plant time, which is cue
+	// time when the daemon accepts Start after StandbyTicks (and later by
+	// the extra standby time otherwise).
 	Profile *sim.MismatchProfile
 
 	// OpenLoop plays the nominal cue on the plant and ignores the
