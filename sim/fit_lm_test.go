@@ -149,7 +149,7 @@ func TestFitStatisticsUndetermined(t *testing.T) {
 	for i := range m {
 		jac.Set(i, 2, c2[i]-p*c0[i])
 	}
-	st, err := FitStatistics(jac, r, FitStatsSettings{})
+	st, err := FitStatistics(jac, r, nil, FitStatsSettings{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -164,5 +164,38 @@ func TestFitStatisticsUndetermined(t *testing.T) {
 	want := math.Sqrt(sigma2 / dot(c2, c2))
 	if math.Abs(st.StdErr[2]-want) > 1e-9*want {
 		t.Errorf("standard error of the orthogonal column %.12g, want %.12g", st.StdErr[2], want)
+	}
+}
+
+// A parameter whose column is tiny for the noise (its standard error, σ
+// over the column's length for an orthogonal column, is many times its
+// typical size) is named undetermined although no column is dependent;
+// with a typical size large enough it is not.
+func TestFitStatisticsWeakForTheNoise(t *testing.T) {
+	const m = 40
+	jac := mat.NewDense(m, 2, nil)
+	r := make([]float64, m)
+	for i := range m {
+		jac.Set(i, 0, 1)
+		jac.Set(i, 1, 1e-4*float64(1-2*(i%2))) // orthogonal to column 0 (m even)
+		r[i] = 0.01 * math.Cos(5*float64(i))
+	}
+	st, err := FitStatistics(jac, r, []float64{1, 1}, FitStatsSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	se := math.Sqrt(sumSquares(r)/float64(m-2)) / (1e-4 * math.Sqrt(m))
+	if len(st.Undetermined) != 1 || len(st.Undetermined[0]) != 1 || st.Undetermined[0][0] != 1 {
+		t.Fatalf("undetermined %v, want parameter 1 alone (its standard error %.3g)", st.Undetermined, se)
+	}
+	if math.Abs(st.StdErr[1]-se) > 1e-9*se {
+		t.Errorf("standard error %.12g, want %.12g", st.StdErr[1], se)
+	}
+	st, err = FitStatistics(jac, r, []float64{1, 10 * se}, FitStatsSettings{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(st.Undetermined) != 0 {
+		t.Errorf("undetermined %v with a typical size 10 standard errors", st.Undetermined)
 	}
 }

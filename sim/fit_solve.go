@@ -11,6 +11,12 @@ type FitSettings struct {
 	Stats FitStatsSettings
 	// Lower and Upper bound the parameters; nil means FitBounds.
 	Lower, Upper []float64
+	// HoldUndetermined refits, after a first fit that finds undetermined
+	// directions, with every parameter of those directions held at its
+	// nominal value, so that a written cell carries no value the data did
+	// not choose. The held parameters keep After = Before and a standard
+	// error of +Inf; Held marks them.
+	HoldUndetermined bool
 }
 
 // FitResult is a finished (or interrupted) fit.
@@ -23,6 +29,9 @@ type FitResult struct {
 	// AtBound marks parameters that ended on a bound (their standard
 	// errors are then not meaningful).
 	AtBound []bool
+	// Held marks parameters held at their nominal values
+	// (FitSettings.HoldUndetermined).
+	Held []bool
 	// RMSBeforeM and RMSAfterM are the root mean square of the residual
 	// coordinates at the nominal and the fitted values, m.
 	RMSBeforeM, RMSAfterM float64
@@ -40,6 +49,68 @@ func Fit(p *FitProblem, s FitSettings, progress func(iter int, cost float64) boo
 	if err := p.Check(); err != nil {
 		return nil, err
 	}
+	res, err := fitOnce(p, s, progress)
+	if err != nil || !s.HoldUndetermined || len(res.Stats.Undetermined) == 0 || res.LM.Interrupted {
+		return res, err
+	}
+	n := len(p.Params)
+	held := make([]bool, n)
+	for _, dir := range res.Stats.Undetermined {
+		for _, j := range dir {
+			held[j] = true
+		}
+	}
+	var keep []int
+	for j := range n {
+		if !held[j] {
+			keep = append(keep, j)
+		}
+	}
+	out := *res
+	out.After = append([]float64(nil), res.Before...)
+	out.StdErr = make([]float64, n)
+	out.AtBound = make([]bool, n)
+	out.Held = held
+	for j := range n {
+		out.StdErr[j] = math.Inf(1)
+	}
+	if len(keep) == 0 {
+		out.Cell = WithFitValues(p.Cell, p.Params, out.After)
+		out.RMSAfterM = out.RMSBeforeM
+		return &out, nil
+	}
+	sub := *p
+	sub.Params = make([]FitParam, len(keep))
+	ss := s
+	if s.Lower != nil && s.Upper != nil {
+		ss.Lower, ss.Upper = make([]float64, len(keep)), make([]float64, len(keep))
+	}
+	for i, j := range keep {
+		sub.Params[i] = p.Params[j]
+		if ss.Lower != nil {
+			ss.Lower[i], ss.Upper[i] = s.Lower[j], s.Upper[j]
+		}
+	}
+	res2, err := fitOnce(&sub, ss, progress)
+	if err != nil {
+		return nil, err
+	}
+	for i, j := range keep {
+		out.After[j] = res2.After[i]
+		out.StdErr[j] = res2.StdErr[i]
+		out.AtBound[j] = res2.AtBound[i]
+	}
+	out.RMSAfterM = res2.RMSAfterM
+	out.LM = res2.LM
+	st := *res2.Stats
+	st.Undetermined = res.Stats.Undetermined // indices into p.Params
+	out.Stats = &st
+	out.Cell = WithFitValues(p.Cell, p.Params, out.After)
+	return &out, nil
+}
+
+// fitOnce is Fit without holding undetermined parameters.
+func fitOnce(p *FitProblem, s FitSettings, progress func(iter int, cost float64) bool) (*FitResult, error) {
 	n := len(p.Params)
 	before := make([]float64, n)
 	FitValues(before, p.Cell, p.Params)
@@ -56,12 +127,14 @@ func Fit(p *FitProblem, s FitSettings, progress func(iter int, cost float64) boo
 	if err != nil {
 		return nil, err
 	}
-	st, err := FitStatistics(lm.Jacobian, lm.Residuals, s.Stats)
+	typical := make([]float64, n)
+	FitTypical(typical, before, p.Params)
+	st, err := FitStatistics(lm.Jacobian, lm.Residuals, typical, s.Stats)
 	if err != nil {
 		return nil, err
 	}
 	res := &FitResult{
-		Params: p.Params, Before: before, After: lm.Theta, StdErr: st.StdErr, AtBound: make([]bool, n),
+		Params: p.Params, Before: before, After: lm.Theta, StdErr: st.StdErr, AtBound: make([]bool, n), Held: make([]bool, n),
 		RMSBeforeM: math.Sqrt(lm.InitialCost / float64(nr)), RMSAfterM: math.Sqrt(lm.Cost / float64(nr)),
 		Stats: st, LM: lm, Cell: WithFitValues(p.Cell, p.Params, lm.Theta),
 	}

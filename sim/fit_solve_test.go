@@ -117,3 +117,42 @@ func TestFitNoisyTrueValuesWithinThreeSigma(t *testing.T) {
 		}
 	}
 }
+
+// With HoldUndetermined, parameters the data cannot determine (here the
+// drag scale of a figure whose nodes have no drag: its column is zero)
+// keep their nominal values and get an infinite standard error, while the
+// others are fitted as without them (compared with a fit that leaves the
+// held parameter out).
+func TestFitHoldsUndetermined(t *testing.T) {
+	cell := loadDemoCell(t)
+	params, _, run := truthCell(t, cell, 0.001, 200)
+	var sub []FitParam
+	for _, p := range params {
+		if p.Kind == FitStringRestLength || p.Kind == FitMassScale {
+			sub = append(sub, p)
+		}
+	}
+	with := append([]FitParam{{Kind: FitDragScale, Name: "node_drag_scale"}}, sub...)
+	// A nominal cell without drag: the drag scale moves nothing.
+	noDrag := *cell
+	noDrag.Figure = cell.Figure.Clone()
+	for i := range noDrag.Figure.Nodes {
+		noDrag.Figure.Nodes[i].DragNsPerM = 0
+	}
+	held, err := Fit(&FitProblem{Cell: &noDrag, Params: with, Runs: []FitRun{run}}, FitSettings{HoldUndetermined: true}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !held.Held[0] || held.After[0] != 1 || !math.IsInf(held.StdErr[0], 1) {
+		t.Fatalf("drag scale: held %v, after %v, std error %v; want held at 1 with +Inf", held.Held[0], held.After[0], held.StdErr[0])
+	}
+	without, err := Fit(&FitProblem{Cell: &noDrag, Params: sub, Runs: []FitRun{run}}, FitSettings{}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range sub {
+		if held.Held[i+1] || math.Abs(held.After[i+1]-without.After[i]) > 1e-12*math.Abs(without.After[i]) || held.StdErr[i+1] != without.StdErr[i] {
+			t.Errorf("%s: %v ± %v held %v; fitted without the drag scale %v ± %v", sub[i].Name, held.After[i+1], held.StdErr[i+1], held.Held[i+1], without.After[i], without.StdErr[i])
+		}
+	}
+}

@@ -2,6 +2,7 @@ package sim
 
 import (
 	"fmt"
+	"math"
 	"sort"
 	"strings"
 )
@@ -291,5 +292,22 @@ func (m *Model) fitParamGrad(dst []float64, k int, x []float64, in *stepInputs, 
 	case FitTrackerOffset:
 	default:
 		panic(fmt.Sprintf("sim: unknown fit parameter kind %d", int(p.Kind)))
+	}
+}
+
+// FitTypical writes each parameter's typical size into dst: the nominal
+// value's magnitude for lengths, stiffnesses and masses, 1 for scales, and
+// 1 cm for the tracker offset (an invented but plausible calibration
+// error). FitStatistics measures standard errors against it.
+func FitTypical(dst, nominal []float64, ps []FitParam) {
+	for j, p := range ps {
+		switch p.Kind {
+		case FitStringRestLength, FitStringStiffness, FitNodeMass:
+			dst[j] = math.Abs(nominal[j])
+		case FitTrackerOffset:
+			dst[j] = 0.01
+		default:
+			dst[j] = 1
+		}
 	}
 }
