@@ -1,9 +1,3 @@
-//go:build tautline_optimize
-
-// These checks need gonum optimize, which imports golang.org/x/tools; until
-// go.mod requires it they build only with -tags tautline_optimize (see the
-// planner report).
-
 package mpc
 
 import (
