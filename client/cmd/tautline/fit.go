@@ -56,7 +56,18 @@ A progress line shows each iteration. Interrupt (Ctrl-C) stops the fit
 cleanly: the best values so far are reported and written.
 
 The fitted cell has the figure written inline and URDF paths relative to its
-own directory, so the daemon loads it as it is. Exits 1 when the captures
+own directory, so the daemon loads it as it is.
+
+With --compare-cue and --compare-profile, the fitted cell is then put to the
+test: the simulated cell (the --cell figure with the mismatch profile) plays
+the cue closed loop twice, against a daemon serving --cell and against one
+serving the fitted cell, with the same disturbances. Printed for both: the
+tracking error (markers as the tracker saw them against the reference that
+daemon tracks) and the demo's figure error (the true figure against the
+nominal cell's reference), with the ratio fitted ÷ nominal. The runs'
+captures are written next to the fitted cell.
+
+Exits 1 when the captures
 cannot be used or the fit fails, 2 on bad usage.`
 
 type fitFlags struct {
@@ -64,6 +75,10 @@ type fitFlags struct {
 	durationS         float64
 	maxIterations     int
 	freeUndetermined  bool
+
+	compareCue, compareProfile string
+	compareDurationS           float64
+	comparePrepareBudgetS      float64
 }
 
 func runFit(args []string, stdout, stderr io.Writer) error {
@@ -79,6 +94,10 @@ func runFit(args []string, stdout, stderr io.Writer) error {
 	fs.Float64Var(&f.durationS, "duration-s", 0, "use only the first this many seconds of each capture (0: all of it)")
 	fs.IntVar(&f.maxIterations, "max-iterations", 50, "Levenberg-Marquardt iterations at most")
 	fs.BoolVar(&f.freeUndetermined, "free-undetermined", false, "write fitted values even for parameters the captures cannot determine (default: hold them at their nominal values and refit the rest)")
+	fs.StringVar(&f.compareCue, "compare-cue", "", "after writing, run this cue closed loop on the simulated cell (--cell with --compare-profile) against a daemon serving --cell and one serving the fitted cell, and compare their tracking")
+	fs.StringVar(&f.compareProfile, "compare-profile", "", "mismatch profile of the simulated cell for --compare-cue (required with it)")
+	fs.Float64Var(&f.compareDurationS, "compare-duration-s", 0, "play only this much of --compare-cue, s (0: all of it)")
+	fs.Float64Var(&f.comparePrepareBudgetS, "compare-prepare-budget-s", 0, "the compared daemons' planner prepare budget per tick, s (0: the daemon's default)")
 	// Flags may follow the captures: parse, take the next positional, repeat.
 	var captures []string
 	rest := args
@@ -100,9 +119,19 @@ func runFit(args []string, stdout, stderr io.Writer) error {
 		return fmt.Errorf("%w: --cell is required (the cell file the captures were recorded with)", errUsage)
 	case f.out == "":
 		return fmt.Errorf("%w: --out is required (where to write the fitted cell)", errUsage)
-	case f.durationS < 0 || f.maxIterations < 1:
-		return fmt.Errorf("%w: --duration-s must be ≥ 0 and --max-iterations ≥ 1", errUsage)
+	case f.durationS < 0 || f.maxIterations < 1 || f.compareDurationS < 0 || f.comparePrepareBudgetS < 0:
+		return fmt.Errorf("%w: --duration-s, --compare-duration-s and --compare-prepare-budget-s must be ≥ 0 and --max-iterations ≥ 1", errUsage)
+	case (f.compareCue == "") != (f.compareProfile == ""):
+		return fmt.Errorf("%w: --compare-cue and --compare-profile go together", errUsage)
 	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	defer stop()
+	return fitCaptures(ctx, &f, captures, stdout, stderr)
+}
+
+// fitCaptures is the fit subcommand after its flags are parsed; a
+// cancelled ctx stops the fit with the best values so far.
+func fitCaptures(ctx context.Context, f *fitFlags, captures []string, stdout, stderr io.Writer) error {
 	cellPath, err := filepath.Abs(f.cell)
 	if err != nil {
 		return err
@@ -131,8 +160,6 @@ func runFit(args []string, stdout, stderr io.Writer) error {
 		fmt.Fprintf(stdout, "%s: %d ticks (%.2f s), %d marker sightings\n", path, run.Ticks(cell.NumJoints()), float64(run.Ticks(cell.NumJoints()))*cell.TickS, len(run.Sightings))
 		prob.Runs = append(prob.Runs, run)
 	}
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
-	defer stop()
 	nr := float64(prob.NumResiduals())
 	tty := isTerminal(stderr)
 	progress := func(iter int, cost float64) bool {
@@ -167,6 +194,14 @@ func runFit(args []string, stdout, stderr io.Writer) error {
 		return fmt.Errorf("the written cell does not load: %w", err)
 	}
 	fmt.Fprintf(stdout, "wrote %s\n", f.out)
+	if f.compareCue == "" {
+		return nil
+	}
+	cmp, err := compareClosedLoop(ctx, cellPath, outPath, f.compareCue, f.compareProfile, f.compareDurationS, f.comparePrepareBudgetS, filepath.Dir(outPath), stdout)
+	if err != nil {
+		return err
+	}
+	printComparison(stdout, cmp)
 	return nil
 }
 
