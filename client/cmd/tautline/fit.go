@@ -178,7 +178,7 @@ func fitCaptures(ctx context.Context, f *fitFlags, captures []string, stdout, st
 	if err != nil {
 		return err
 	}
-	printFit(stdout, res)
+	printFit(stdout, res, cell.MarkerNoiseM)
 	note := fmt.Sprintf("fitted by tautline fit (%s) to %s: RMS marker residual %.3g mm → %.3g mm", f.params, strings.Join(baseNames(captures), ", "), 1e3*res.RMSBeforeM, 1e3*res.RMSAfterM)
 	data, err := sim.MarshalCell(res.Cell, outPath, note)
 	if err != nil {
@@ -344,6 +344,12 @@ func fitRunFromCapture(path string, cell *sim.Cell, durationS float64) (sim.FitR
 		}
 	}
 	run.Sightings = kept
+	for j := range nq {
+		if math.Abs(run.JointsQ[nq+j]-run.JointsQ[j]) > 1e-6 {
+			notes = append(notes, "the arms were moving at the first observation; the fit assumes the figure at rest there")
+			break
+		}
+	}
 	if offGrid > 0 {
 		notes = append(notes, fmt.Sprintf("%d observation times off the %v s tick grid left out", offGrid, h))
 	}
@@ -353,12 +359,15 @@ func fitRunFromCapture(path string, cell *sim.Cell, durationS float64) (sim.FitR
 	return run, strings.Join(notes, "; "), nil
 }
 
-func printFit(w io.Writer, r *sim.FitResult) {
+func printFit(w io.Writer, r *sim.FitResult, noiseM float64) {
 	fmt.Fprintf(w, "fit: %s after %d iterations (%d evaluations)\n", r.LM.Reason, r.LM.Iterations, r.LM.Evaluations)
 	if r.LM.Interrupted {
 		fmt.Fprintln(w, "fit: interrupted; these are the best values so far")
 	}
 	fmt.Fprintf(w, "RMS marker residual: %.4f mm before, %.4f mm after (residual σ %.4f mm)\n", 1e3*r.RMSBeforeM, 1e3*r.RMSAfterM, 1e3*math.Sqrt(r.Stats.Sigma2))
+	if sigma := math.Sqrt(r.Stats.Sigma2); sigma > 1.5*noiseM {
+		fmt.Fprintf(w, "note: the residual σ is %.1f× the cell's marker noise (%.3g mm): the model still misses something (unfitted parameters, disturbances), and the standard errors understate the uncertainty\n", sigma/noiseM, 1e3*noiseM)
+	}
 	undetermined := map[int]bool{}
 	for _, dir := range r.Stats.Undetermined {
 		for _, j := range dir {

@@ -68,6 +68,15 @@ func TestFitDemoCapture(t *testing.T) {
 	if !strings.Contains(stderr, "fit: iteration 1,") {
 		t.Errorf("no progress line on stderr:\n%s", stderr)
 	}
+	if strings.Contains(stdout, "understate") {
+		t.Errorf("a fit down to the noise warns of a model that misses something")
+	}
+	// Rest lengths alone leave the masses' and drag's mismatch unexplained:
+	// the residual stays well above the noise and the output says so.
+	code, stdout2, stderr2 := runCLI("fit", capPath, "--cell", demoCell, "--params", "string_rest_lengths", "--duration-s", "3.9", "--out", out+".lengths")
+	if code != 0 || !strings.Contains(stdout2, "the standard errors understate the uncertainty") {
+		t.Errorf("rest lengths alone: exit %d, no warning of a misfit:\n%s\n%s", code, stdout2, stderr2)
+	}
 	fitted, err := sim.LoadCell(out, os.ReadFile)
 	if err != nil {
 		t.Fatal(err)
