@@ -46,11 +46,14 @@ Parameter groups for --params (comma-separated):
 %s
 The report gives every parameter's value before and after with its standard
 error (from the Gauss-Newton covariance σ²(JᵀJ)⁻¹, σ² from the residual),
-the RMS marker residual before and after, and the parameter combinations the
-captures cannot determine (near-singular directions of the scaled
-Jacobian, or too weak for the noise: a standard error above half their
-typical size). Those are held at their nominal values and the others refitted
-(unless --free-undetermined); record motion that moves them to fit them.
+the RMS marker residual (over every marker coordinate) before and after, and
+the parameter combinations the captures cannot determine (near-singular
+directions of the scaled Jacobian, or too weak for the noise: a standard
+error above half their typical size). Those are held at their nominal values
+and the others refitted (unless --free-undetermined); record motion that
+moves them to fit them. Standard errors assume the model explains the data
+up to the tracker noise; the report says when the residual stays well above
+the cell's marker noise.
 
 A progress line shows each iteration. Interrupt (Ctrl-C) stops the fit
 cleanly: the best values so far are reported and written.
@@ -67,8 +70,7 @@ daemon tracks) and the demo's figure error (the true figure against the
 nominal cell's reference), with the ratio fitted ÷ nominal. The runs'
 captures are written next to the fitted cell.
 
-Exits 1 when the captures
-cannot be used or the fit fails, 2 on bad usage.`
+Exits 1 when the captures cannot be used or the fit fails, 2 on bad usage.`
 
 type fitFlags struct {
 	cell, params, out string
