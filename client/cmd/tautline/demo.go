@@ -65,7 +65,7 @@ func runDemo(args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("demo", "[--out DIR]", demoHelp, stderr)
 	fs.StringVar(&f.out, "out", "demo-out", "directory to write into (created if missing)")
 	fs.Float64Var(&f.durationS, "duration-s", 0, "play only this much of the cue, s (0: all of it; tests use a few seconds)")
-	fs.BoolVar(&f.fast, "fast", false, "run as fast as the daemon answers instead of at the tick rate (latency figures then include queueing)")
+	fs.BoolVar(&f.fast, "fast", false, "run as fast as the daemon answers instead of at the tick rate (latency then includes the prepare phase the daemon otherwise does between ticks)")
 	fs.Float64Var(&f.prepareBudgetS, "prepare-budget-s", 0, "the daemon's planner prepare budget per tick, s (0: the daemon's default; a large value makes runs repeat bit for bit)")
 	fs.StringVar(&f.cell, "cell", "testdata/demo/cell.json", "demo cell file")
 	fs.StringVar(&f.cue, "cue", "testdata/demo/cue.csv", "demo cue file")
