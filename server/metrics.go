@@ -1,11 +1,13 @@
 package server
 
 import (
+	"math"
 	"strings"
 
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/collectors"
 
+	"tautline/mpc"
 	pb "tautline/proto/tautline/v1"
 )
 
@@ -162,6 +164,9 @@ type CellMetrics struct {
 	captureBytes            prometheus.Counter
 	captureFlush            prometheus.Observer
 	connected               prometheus.Gauge
+
+	markerNodes []int     // node of each of the cell's markers, in cell order
+	refBuf      []float64 // the reference's marker positions, xyz per marker
 }
 
 // enumLabel turns an enum value name into a label value: the prefix goes,
@@ -171,10 +176,11 @@ func enumLabel(name, prefix string) string {
 }
 
 // Cell creates the label children of the cell named cell, whose joints are
-// jointNames in command order, and returns their recorder. Call it once
-// per cell when the cell is loaded. Counters start at zero, so a rate is
-// defined from the first scrape.
-func (m *Metrics) Cell(cell string, jointNames []string) *CellMetrics {
+// jointNames in command order and whose markers sit on the figure nodes
+// markerNodes (in the cell's marker order, as references give them), and
+// returns their recorder. Call it once per cell when the cell is loaded.
+// Counters start at zero, so a rate is defined from the first scrape.
+func (m *Metrics) Cell(cell string, jointNames []string, markerNodes []int) *CellMetrics {
 	if m == nil {
 		return nil
 	}
@@ -187,6 +193,8 @@ func (m *Metrics) Cell(cell string, jointNames []string) *CellMetrics {
 		captureBytes:  m.captureBytes.WithLabelValues(cell),
 		captureFlush:  m.captureFlush.WithLabelValues(cell),
 		connected:     m.connected.WithLabelValues(cell),
+		markerNodes:   append([]int(nil), markerNodes...),
+		refBuf:        make([]float64, 3*len(markerNodes)),
 	}
 	c.ticks = make([]prometheus.Counter, len(pb.SessionState_name))
 	for v, name := range pb.SessionState_name {
@@ -257,6 +265,39 @@ func (c *CellMetrics) TrackingError(m float64) {
 		return
 	}
 	c.trackingError.Observe(m)
+}
+
+// TrackingErrorFrom records the tracking error of the estimated figure
+// state x (node positions first, xyz per node) against the reference's
+// marker positions at cue time cueS: TrackingErrorM over the cell's
+// markers. It reuses one buffer, so call it from the cell's tick only (one
+// goroutine at a time); it allocates nothing.
+func (c *CellMetrics) TrackingErrorFrom(ref mpc.MarkerReference, cueS float64, x []float64) {
+	if c == nil || ref == nil || len(c.markerNodes) == 0 {
+		return
+	}
+	ref.MarkersTo(c.refBuf, cueS)
+	c.trackingError.Observe(TrackingErrorM(x, c.markerNodes, c.refBuf))
+}
+
+// TrackingErrorM is the root mean square, over markers i, of the distance
+// between node nodes[i] of x (xyz per node) and ref[3i:3i+3], m. NaN when
+// there are no markers.
+func TrackingErrorM(x []float64, nodes []int, ref []float64) float64 {
+	if len(ref) != 3*len(nodes) {
+		panic("server: TrackingErrorM: reference length is not 3 per marker")
+	}
+	if len(nodes) == 0 {
+		return math.NaN()
+	}
+	var sum float64
+	for i, n := range nodes {
+		for k := 0; k < 3; k++ {
+			d := x[3*n+k] - ref[3*i+k]
+			sum += d * d
+		}
+	}
+	return math.Sqrt(sum / float64(len(nodes)))
 }
 
 // RejectedObservation counts an observation answered with tick error

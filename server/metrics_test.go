@@ -2,6 +2,7 @@ package server
 
 import (
 	"io"
+	"math"
 	"net/http"
 	"net/http/httptest"
 	"strings"
@@ -12,14 +13,44 @@ import (
 	pb "tautline/proto/tautline/v1"
 )
 
-var testJoints = []string{"left.shoulder", "left.elbow"}
+var (
+	testJoints      = []string{"left.shoulder", "left.elbow"}
+	testMarkerNodes = []int{2, 0}
+)
+
+// fixedReference gives the same marker positions at every time.
+type fixedReference struct{ xyz []float64 }
+
+func (r *fixedReference) MarkersTo(dst []float64, _ float64) { copy(dst, r.xyz) }
+
+func TestTrackingError(t *testing.T) {
+	// Three nodes; markers on nodes 2 and 0. Distances 3-4-5 (a Pythagorean
+	// triple) and 0: RMS = sqrt((25 + 0)/2).
+	x := []float64{
+		1, 1, 1, // node 0
+		9, 9, 9, // node 1: no marker, must not count
+		0, 0, 0, // node 2
+	}
+	ref := &fixedReference{[]float64{3, 4, 0, 1, 1, 1}}
+	want := math.Sqrt(25.0 / 2)
+	if got := TrackingErrorM(x, testMarkerNodes, ref.xyz); math.Abs(got-want) > 1e-15 {
+		t.Errorf("TrackingErrorM = %v, want %v", got, want)
+	}
+	m := NewMetrics()
+	c := m.Cell("demo", testJoints, testMarkerNodes)
+	c.TrackingErrorFrom(ref, 0, x)
+	checkHistogram(t, m, MetricTrackingError, map[string]string{"cell": "demo"}, []float64{want})
+	if allocs := testing.AllocsPerRun(100, func() { c.TrackingErrorFrom(ref, 0, x) }); allocs != 0 {
+		t.Errorf("TrackingErrorFrom: %v allocations, want 0", allocs)
+	}
+}
 
 // Every metric name passes client_golang's own linter (testutil.GatherAndLint
 // applies the Prometheus naming conventions: units as base units in the
 // name, counters ending in _total).
 func TestMetricsNamesPassPrometheusLint(t *testing.T) {
 	m := NewMetrics()
-	c := m.Cell("demo", testJoints)
+	c := m.Cell("demo", testJoints, testMarkerNodes)
 	c.ObserveTick(pb.SessionState_SESSION_STATE_LIVE, 0.002, 0.0005)
 	c.TrackingError(0.003)
 	problems, err := testutil.GatherAndLint(m.Registry)
@@ -33,8 +64,8 @@ func TestMetricsNamesPassPrometheusLint(t *testing.T) {
 
 func TestMetricsCountWhatTheyAreTold(t *testing.T) {
 	m := NewMetrics()
-	c := m.Cell("demo", testJoints)
-	other := m.Cell("other", testJoints)
+	c := m.Cell("demo", testJoints, testMarkerNodes)
+	other := m.Cell("other", testJoints, testMarkerNodes)
 
 	c.ObserveTick(pb.SessionState_SESSION_STATE_LIVE, 0.002, 0.0005)
 	c.ObserveTick(pb.SessionState_SESSION_STATE_LIVE, -1, 0.0007)
@@ -155,7 +186,7 @@ func checkHistogram(t *testing.T, m *Metrics, name string, labels map[string]str
 // Recording a tick allocates nothing: the label children are made by
 // Metrics.Cell.
 func TestCellMetricsRecordWithoutAllocating(t *testing.T) {
-	c := NewMetrics().Cell("demo", testJoints)
+	c := NewMetrics().Cell("demo", testJoints, testMarkerNodes)
 	allocs := testing.AllocsPerRun(100, func() {
 		c.ObserveTick(pb.SessionState_SESSION_STATE_LIVE, 0.002, 0.0005)
 		c.Fallback(FallbackEstimator)
@@ -175,7 +206,7 @@ func TestCellMetricsRecordWithoutAllocating(t *testing.T) {
 // without metrics.
 func TestNilMetricsRecordNothing(t *testing.T) {
 	var m *Metrics
-	c := m.Cell("demo", testJoints)
+	c := m.Cell("demo", testJoints, testMarkerNodes)
 	if c != nil {
 		t.Fatal("a nil Metrics made a cell recorder")
 	}
@@ -195,7 +226,7 @@ func TestNilMetricsRecordNothing(t *testing.T) {
 // nothing elsewhere.
 func TestMetricsHTTPServesExposition(t *testing.T) {
 	m := NewMetrics()
-	m.Cell("demo", testJoints).ObserveTick(pb.SessionState_SESSION_STATE_STANDBY, -1, 0.0001)
+	m.Cell("demo", testJoints, testMarkerNodes).ObserveTick(pb.SessionState_SESSION_STATE_STANDBY, -1, 0.0001)
 	ts := httptest.NewServer(NewMetricsHTTPServer(m).Handler)
 	defer ts.Close()
 
