@@ -62,13 +62,17 @@ The fitted cell has the figure written inline and URDF paths relative to its
 own directory, so the daemon loads it as it is.
 
 With --compare-cue and --compare-profile, the fitted cell is then put to the
-test: the simulated cell (the --cell figure with the mismatch profile) plays
-the cue closed loop twice, against a daemon serving --cell and against one
-serving the fitted cell, with the same disturbances. Printed for both: the
-tracking error (markers as the tracker saw them against the reference that
-daemon tracks) and the demo's figure error (the true figure against the
-nominal cell's reference), with the ratio fitted ÷ nominal. The runs'
-captures are written next to the fitted cell.
+test: the simulated cell (the --cell figure with the mismatch profile, the
+same disturbances every run) plays the cue closed loop against a daemon
+serving --cell and against one serving the fitted cell, twice each. First
+each daemon tracks its own reference (the cue simulated on its cell's
+model): printed are the tracking error (markers as the tracker saw them
+against that reference) and the demo's figure error (the true figure against
+the nominal cell's reference). Then both daemons are given the nominal
+reference as the cue's reference file, so both aim at the same intended
+motion and differ only in the model they estimate and plan with: printed is
+the figure error against it. Each row ends with the ratio fitted ÷ nominal.
+The first runs' captures are written next to the fitted cell.
 
 Exits 1 when the captures cannot be used or the fit fails, 2 on bad usage.`
 
