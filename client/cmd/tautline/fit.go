@@ -412,6 +412,10 @@ func printFit(w io.Writer, r *sim.FitResult, noiseM float64) {
 		for i, j := range dir {
 			names[i] = r.Params[j].Name
 		}
-		fmt.Fprintf(w, "the captures cannot determine: %s\n", strings.Join(names, " together with "))
+		if len(names) == 1 {
+			fmt.Fprintf(w, "the captures cannot determine %s\n", names[0])
+			continue
+		}
+		fmt.Fprintf(w, "the captures cannot determine a combination of %s\n", strings.Join(names, ", "))
 	}
 }
