@@ -36,7 +36,8 @@ Exits 0 when the files are valid, 1 with every problem found (file, line:column
 and field) when they are not, 2 on bad usage.`
 
 func runCheck(args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("check", "CELL [CUE]", checkHelp, stderr)
+	fs := newFlags("check", "[--weakest N] CELL [CUE]", checkHelp, stderr)
+	weakest := fs.Int("weakest", 5, "how many of the cue's weakest authority windows to print (0: skip the authority analysis)")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -52,7 +53,7 @@ func runCheck(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	if fs.NArg() == 2 {
-		return checkCue(stdout, cell, fs.Arg(1))
+		return checkCue(stdout, cell, fs.Arg(1), weakest)
 	}
 	return nil
 }
@@ -66,7 +67,7 @@ func loadCue(cell *sim.Cell, path string) (*mpc.Cue, error) {
 	return mpc.ParseCue(path, data, mpc.CueJointsOf(cell), mpc.CueSettings{TickS: cell.TickS})
 }
 
-func checkCue(w io.Writer, cell *sim.Cell, path string) error {
+func checkCue(w io.Writer, cell *sim.Cell, path string, weakest *int) error {
 	cue, err := loadCue(cell, path)
 	if err != nil {
 		return err
@@ -79,7 +80,44 @@ func checkCue(w io.Writer, cell *sim.Cell, path string) error {
 			p.PeakSpeed, 100*p.PeakSpeedOfLimit, p.PeakSpeedAtS, p.PeakAccel, 100*p.PeakAccelOfLimit, p.PeakAccelAtS)
 	}
 	tw.Flush()
+	if err := printAuthority(w, cell, cue, *weakest); err != nil {
+		return err
+	}
 	fmt.Fprintf(w, "\nok: %s is valid for this cell\n", path)
+	return nil
+}
+
+// printAuthority prints the cue's weakest windows of planner authority.
+func printAuthority(w io.Writer, cell *sim.Cell, cue *mpc.Cue, n int) error {
+	if n <= 0 {
+		return nil
+	}
+	nom, err := mpc.SimulateNominal(cell, cue, cue.StartS(), cue.EndS(), mpc.NominalSettings{})
+	if err != nil {
+		return fmt.Errorf("simulating the cue on the model: %w", err)
+	}
+	wins, err := mpc.CueAuthority(cell, cue, nom, cue.StartS(), cue.EndS(), mpc.AuthoritySettings{})
+	if err != nil {
+		return fmt.Errorf("authority: %w", err)
+	}
+	if len(wins) == 0 {
+		return nil
+	}
+	strongest := 0.0
+	for _, a := range wins {
+		strongest = math.Max(strongest, a.MinSingular)
+	}
+	fmt.Fprintf(w, "\nplanner authority (smallest singular value of marker motion per joint correction, m/rad), %d weakest of %d windows\n", min(n, len(wins)), len(wins))
+	tw := tabwriter.NewWriter(w, 2, 8, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "  window s\tmin σ\tmax σ\tof best window\tanchor rank\tweakest joint\t")
+	for _, a := range wins[:min(n, len(wins))] {
+		rel := 0.0
+		if strongest > 0 {
+			rel = a.MinSingular / strongest
+		}
+		fmt.Fprintf(tw, "  %.2f–%.2f\t%.3g\t%.3g\t%.0f%%\t%d\t%s\t\n", a.StartS, a.EndS, a.MinSingular, a.MaxSingular, 100*rel, a.AnchorRank, a.WeakestJoint)
+	}
+	tw.Flush()
 	return nil
 }
 

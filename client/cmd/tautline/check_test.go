@@ -36,7 +36,7 @@ func TestCheckDemoCellAndCue(t *testing.T) {
 	if code != 0 {
 		t.Fatalf("exit %d, stderr %s", code, errOut)
 	}
-	for _, want := range []string{"cue ", "12.000 s", "peak speed", "of limit", "is valid for this cell"} {
+	for _, want := range []string{"cue ", "12.000 s", "peak speed", "of limit", "planner authority", "weakest joint", "is valid for this cell"} {
 		if !strings.Contains(out, want) {
 			t.Errorf("output lacks %q", want)
 		}
