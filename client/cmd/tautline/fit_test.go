@@ -43,8 +43,8 @@ const fitDemoParams = "string_rest_lengths,node_masses,damping"
 // The fit of the shortened demo's open-loop capture (its first 3.9 s,
 // before the standard profile's push at 4 s, which no model parameter
 // explains): the CLI writes a cell that loads; the fitted string rest
-// lengths and drag scale lie within 3 standard errors of the plant's true
-// values (standard nonlinear least squares, Seber and Wild 1989, ch. 2);
+// lengths, node masses and drag scale lie within 3 standard errors of the
+// plant's true values (standard nonlinear least squares, Seber and Wild 1989, ch. 2);
 // the RMS marker residual falls from centimetres to within 10% of the
 // tracker's 1 mm noise (what is left besides noise: nothing the model
 // lacks in that window except the servo lag, which the measured joints
@@ -112,9 +112,15 @@ func TestFitDemoCapture(t *testing.T) {
 			if got := fitted.Strings[p.Index].RestLengthM; got != res.After[j] {
 				t.Errorf("%s: written %v, fitted %v", p.Name, got, res.After[j])
 			}
+		case sim.FitNodeMass:
+			truth = truthFig.Nodes[p.Index].MassKg
 		case sim.FitDragScale:
 			truth = truthFig.Nodes[0].DragNsPerM / cell.Figure.Nodes[0].DragNsPerM
 		default:
+			continue // rod damping: the standard profile adds to it, no scale is true
+		}
+		if res.Held[j] {
+			t.Errorf("%s held as undetermined", p.Name)
 			continue
 		}
 		if z := (res.After[j] - truth) / res.StdErr[j]; !(math.Abs(z) <= 3) {
