@@ -74,6 +74,8 @@ func TestFitJacobianAgainstFiniteDifferences(t *testing.T) {
 func testFitJacobian(t *testing.T, ticks int) {
 	cell := loadDemoCell(t)
 	run, _ := plantRun(t, cell, &MismatchProfile{Seed: 3, StringRestLengthSpread: 0.05}, ticks)
+	// A second, shorter run with a servo lag checks the runs' row blocks.
+	run2, _ := plantRun(t, cell, &MismatchProfile{Seed: 4, StringRestLengthSpread: 0.05, ServoTimeConstantS: 0.015}, max(1, ticks/2))
 	var params []FitParam
 	for _, g := range []string{"string_rest_lengths", "string_stiffnesses", "mass_groups", "node_masses", "damping", "tracker_offset"} {
 		ps, err := ParseFitParams(cell, g)
@@ -98,7 +100,7 @@ func testFitJacobian(t *testing.T, ticks int) {
 			count[p.Kind]++
 		}
 	}
-	prob := &FitProblem{Cell: cell, Params: pick, Runs: []FitRun{run}, Settings: ModelSettings{GradTol: 1e-15}}
+	prob := &FitProblem{Cell: cell, Params: pick, Runs: []FitRun{run, run2}, Settings: ModelSettings{GradTol: 1e-15}}
 	if err := prob.Check(); err != nil {
 		t.Fatal(err)
 	}
