@@ -45,6 +45,23 @@ const (
 	DefaultStaleAfterTicks = 5
 	// DefaultCommandHistory is how many recorded commands are kept.
 	DefaultCommandHistory = 32
+	// DefaultMarkerOffsetWalkMPerSqrtS is the random-walk intensity of each
+	// marker offset coordinate (see Estimator, Marker offsets): its
+	// standard deviation grows by this much per √s. Tuned on the demo cell
+	// and cue against the standard mismatch profile in closed loop (the
+	// planner cancelling the offsets; RMS figure error closed ÷ open over
+	// the 12 s cue): 0.39 at 0.1 and 0.5 mm/√s, 0.40 at 1, 0.42 at 2,
+	// 0.49 at 5, 0.58 at 10 and 0.82 at 30 mm/√s; with only the strings
+	// mismatched it is 0.11 anywhere from 0.5 to 2 mm/√s. A fast walk lets
+	// the offsets soak up swings (the push, the extra damping) that the
+	// planner then takes for static; a slow one still follows the offsets
+	// as the pose changes over the cue.
+	DefaultMarkerOffsetWalkMPerSqrtS = 0.0005
+	// DefaultInitialMarkerOffsetM is the prior standard deviation of each
+	// marker offset coordinate when the filter initialises (the prior mean
+	// is zero): a few percent of the demo's 0.75 m strings. The closed-loop
+	// figure above did not change between 1 and 5 cm.
+	DefaultInitialMarkerOffsetM = 0.03
 	// DefaultMaxPredictSteps bounds the process steps one call may take:
 	// an observation further than this from the filter's time
 	// re-initialises the filter, and PredictTo refuses to go further.
@@ -70,6 +87,18 @@ type EstimatorSettings struct {
 	StaleAfterTicks    int     // 0 means DefaultStaleAfterTicks
 	CommandHistory     int     // 0 means DefaultCommandHistory
 	MaxPredictSteps    int     // 0 means DefaultMaxPredictSteps
+
+	// MarkerOffsetWalkMPerSqrtS is the random-walk intensity of the marker
+	// offsets, m/√s; 0 means DefaultMarkerOffsetWalkMPerSqrtS.
+	MarkerOffsetWalkMPerSqrtS float64
+	// InitialMarkerOffsetM is the prior standard deviation of each marker
+	// offset coordinate, m; 0 means DefaultInitialMarkerOffsetM.
+	InitialMarkerOffsetM float64
+	// NoMarkerOffsets leaves the marker offsets out of the state: the
+	// filter is then the plain EKF over (x_k, x_{k−1}), whose markers
+	// measure their nodes exactly up to noise, and MarkerOffsetTo writes
+	// zeros. The zero value (false) estimates them.
+	NoMarkerOffsets bool
 }
 
 func (s EstimatorSettings) withDefaults() (EstimatorSettings, error) {
@@ -93,12 +122,15 @@ func (s EstimatorSettings) withDefaults() (EstimatorSettings, error) {
 		{&s.InitialLocalM, DefaultInitialLocalM, "InitialLocalM"},
 		{&s.InitialSpeedMPerS, DefaultInitialSpeedMPerS, "InitialSpeedMPerS"},
 		{&s.GateChi2, DefaultGateChi2, "GateChi2"},
+		{&s.MarkerOffsetWalkMPerSqrtS, DefaultMarkerOffsetWalkMPerSqrtS, "MarkerOffsetWalkMPerSqrtS"},
+		{&s.InitialMarkerOffsetM, DefaultInitialMarkerOffsetM, "InitialMarkerOffsetM"},
 	} {
 		if err := def(f.v, f.d, f.name); err != nil {
 			return s, err
 		}
 	}
-	for _, v := range []float64{s.ProcessAccelMPerS2, s.ProcessPositionM, s.InitialShiftM, s.InitialLocalM, s.InitialSpeedMPerS} {
+	for _, v := range []float64{s.ProcessAccelMPerS2, s.ProcessPositionM, s.InitialShiftM, s.InitialLocalM, s.InitialSpeedMPerS,
+		s.MarkerOffsetWalkMPerSqrtS, s.InitialMarkerOffsetM} {
 		if math.IsInf(v, 0) {
 			return s, fmt.Errorf("mpc: estimator settings must be finite (only GateChi2 may be +Inf)")
 		}
@@ -213,6 +245,34 @@ var (
 // reject every marker from then on. The markers used are applied in one
 // batch update.
 //
+// # Marker offsets
+//
+// Unless NoMarkerOffsets is set, the state also holds one offset per
+// marker, o ∈ R^{3·markers} (world frame, m, three per marker in MarkerSet
+// order), s = (x_k, x_{k−1}, o), and a marker measures its node plus its
+// offset:
+//
+//	y_m = x_k[node(m)] + o_m + v,   o_{k+1} = o_k + w_o,  w_o ~ N(0, σ_o²·h·I),
+//
+// a random walk of intensity σ_o (MarkerOffsetWalkMPerSqrtS, m/√s) that the
+// process step does not touch: F = blkdiag(F_x, I). This is the output
+// disturbance model of offset-free model predictive control (Muske &
+// Badgwell 2002, "Disturbance modeling for offset-free linear model
+// predictive control", J. Process Control 12; Pannocchia & Rawlings 2003,
+// AIChE J. 49): the model pins x, since holding the figure away from where
+// the model lets it hang would take a sustained acceleration the process
+// noise makes improbable, and o absorbs whatever the model cannot explain
+// (strings a few percent long, a tracker slightly off). At a steady state
+// the innovations average zero, so x is a fixed point of the model and
+// p(x) + o is the observed marker position: a planner that tracks
+// p(x) + o instead of p(x) removes the static error (Planner.SetMarkerOffset).
+// Read the offsets with MarkerOffsetTo. The prior at initialisation is
+// zero with standard deviation InitialMarkerOffsetM per coordinate,
+// independent of x; Reset and a re-initialisation forget the offsets.
+// Cost: the state grows from 2D to 2D + 3·markers (120 to 150 on the demo
+// figure), and the propagation applies the step's Jacobian to the offset
+// columns too.
+//
 // # Timing (all times are cue times in seconds)
 //
 // The filter lives on a grid t_k = t₀ + k·h, where t₀ is the capture time of
@@ -282,6 +342,8 @@ type Estimator struct {
 	markers MarkerSet
 	set     EstimatorSettings
 	d       int // positions per state half
+	no      int // marker offset coordinates in the state: 3·markers, or 0 with NoMarkerOffsets
+	n       int // state length, 2·d + no
 	nj      int // joints
 	h       float64
 	fixed   []bool // per coordinate: held by the process
@@ -291,7 +353,7 @@ type Estimator struct {
 	t0        float64 // first capture time, s
 	k         int64   // grid index of the filter state
 	mean      []float64
-	cov       []float64 // 2D×2D row-major, full (both triangles)
+	cov       []float64 // n×n row-major, full (both triangles)
 	joints    []float64 // measured joints at the filter time
 	noMarkers int
 
@@ -322,7 +384,7 @@ type Estimator struct {
 	predCur     []float64
 	predPrev    []float64
 	predNext    []float64
-	variances   []float64 // process noise variance per coordinate
+	variances   []float64 // process noise variance per coordinate of x_{k+1}, then per marker offset coordinate
 }
 
 // NewEstimator makes an estimator for a process (the figure's step) and the
@@ -353,12 +415,18 @@ func NewEstimator(p Process, m MarkerSet, s EstimatorSettings) (*Estimator, erro
 		}
 	}
 	nm := len(m.Nodes)
-	n := 2 * d
+	no := 3 * nm
+	if s.NoMarkerOffsets {
+		no = 0
+	}
+	n := 2*d + no
 	e := &Estimator{
 		proc:       p,
 		markers:    MarkerSet{Nodes: append([]int(nil), m.Nodes...), NoiseM: m.NoiseM, TrackerToWorld: m.TrackerToWorld},
 		set:        s,
 		d:          d,
+		no:         no,
+		n:          n,
 		nj:         nj,
 		h:          h,
 		fixed:      make([]bool, d),
@@ -387,7 +455,7 @@ func NewEstimator(p Process, m MarkerSet, s EstimatorSettings) (*Estimator, erro
 		predCur:    make([]float64, d),
 		predPrev:   make([]float64, d),
 		predNext:   make([]float64, d),
-		variances:  make([]float64, d),
+		variances:  make([]float64, d+no),
 	}
 	for i := range e.fixed {
 		e.fixed[i] = p.Fixed(i)
@@ -433,7 +501,7 @@ func (e *Estimator) StateTo(xCur, xPrev []float64) {
 		panic("mpc: StateTo: wrong length")
 	}
 	copy(xCur, e.mean[:e.d])
-	copy(xPrev, e.mean[e.d:])
+	copy(xPrev, e.mean[e.d:2*e.d])
 }
 
 // PositionVarianceTo writes the filter's variance of every position
@@ -446,7 +514,7 @@ func (e *Estimator) PositionVarianceTo(dst []float64) {
 	if len(dst) != e.d {
 		panic("mpc: PositionVarianceTo: wrong length")
 	}
-	n := 2 * e.d
+	n := e.n
 	for i := range dst {
 		dst[i] = e.cov[i*n+i]
 	}
@@ -454,3 +522,24 @@ func (e *Estimator) PositionVarianceTo(dst []float64) {
 
 // Dim is the length of a position vector (3·nodes).
 func (e *Estimator) Dim() int { return e.d }
+
+// NumMarkerOffsets is the number of marker offset coordinates the filter
+// estimates: 3·markers, or 0 with NoMarkerOffsets.
+func (e *Estimator) NumMarkerOffsets() int { return e.no }
+
+// MarkerOffsetTo writes the estimated marker offsets into dst (length
+// 3·markers, world frame, m, three per marker in MarkerSet order): what
+// each marker is observed to sit from its node where the model puts it
+// (see Marker offsets on Estimator). It writes zeros before the first
+// observation and with NoMarkerOffsets. It panics if dst has the wrong
+// length.
+func (e *Estimator) MarkerOffsetTo(dst []float64) {
+	if len(dst) != 3*len(e.markers.Nodes) {
+		panic("mpc: MarkerOffsetTo: wrong length")
+	}
+	if !e.init || e.no == 0 {
+		clear(dst)
+		return
+	}
+	copy(dst, e.mean[2*e.d:])
+}

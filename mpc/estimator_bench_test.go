@@ -453,50 +453,67 @@ func BenchmarkCovariancePropagation(b *testing.B) {
 // (through TangentTo of an exactly linear process) and the formed-Jacobian
 // block product against F·P·Fᵀ + Q formed densely with gonum's mat (the
 // reference library), for a random symmetric P: agreement to 1e-12 of the
-// largest entry (rounding of sums of 2D = 24 terms).
+// largest entry (rounding of sums of 2D = 24 terms). Also with two markers
+// and their offsets in the state, where F = blkdiag(F_x, I) and Q has the
+// offsets' random-walk variance on their diagonal (the formed-Jacobian
+// product has no offsets and is left out there).
 func TestPropagateMatchesDenseProduct(t *testing.T) {
-	rng := rand.New(rand.NewPCG(11, 11))
-	proc := newLinearProcess(rng, 4, 2, 0.01)
-	d := proc.Dim()
-	n := 2 * d
-	q := make([]float64, d)
-	for i := range q {
-		if !proc.Fixed(i) {
-			q[i] = rng.Float64()
+	for _, markers := range [][]int{nil, {1, 3}} {
+		rng := rand.New(rand.NewPCG(11, 11))
+		proc := newLinearProcess(rng, 4, 2, 0.01)
+		d := proc.Dim()
+		no := 3 * len(markers)
+		n := 2*d + no
+		q := make([]float64, d+no)
+		for i := range q {
+			if i >= d || !proc.Fixed(i) {
+				q[i] = rng.Float64()
+			}
 		}
-	}
-	p0 := randomCovariance(rng, n)
-	f := mat.NewDense(n, n, nil)
-	f.Slice(0, d, 0, d).(*mat.Dense).Copy(proc.a)
-	f.Slice(0, d, d, n).(*mat.Dense).Copy(proc.b)
-	for i := 0; i < d; i++ {
-		f.Set(d+i, i, 1)
-	}
-	var fp, want mat.Dense
-	fp.Mul(f, mat.NewDense(n, n, slices.Clone(p0)))
-	want.Mul(&fp, f.T())
-	for i := 0; i < d; i++ {
-		want.Set(i, i, want.At(i, i)+q[i])
-	}
-	est, err := NewEstimator(proc, MarkerSet{TrackerToWorld: sim.Identity()}, EstimatorSettings{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	xs := make([]float64, d)
-	if err := proc.Step(xs, xs, xs, make([]float64, 2)); err != nil {
-		t.Fatal(err)
-	}
-	viaTangent := slices.Clone(p0)
-	est.propagate(viaTangent, q)
-	viaJacobians := slices.Clone(p0)
-	propagateWithJacobians(viaJacobians, d, proc.a.RawMatrix().Data, proc.b.RawMatrix().Data, q,
-		make([]float64, d*n), make([]float64, d*n), make([]float64, d*d))
-	scale := mat.Norm(&want, math.Inf(1))
-	for name, got := range map[string][]float64{"tangent": viaTangent, "jacobians": viaJacobians} {
-		for i := 0; i < n; i++ {
-			for j := 0; j < n; j++ {
-				if e := math.Abs(got[i*n+j] - want.At(i, j)); e > 1e-12*scale {
-					t.Fatalf("%s: P[%d,%d] = %g, dense %g", name, i, j, got[i*n+j], want.At(i, j))
+		p0 := randomCovariance(rng, n)
+		f := mat.NewDense(n, n, nil)
+		f.Slice(0, d, 0, d).(*mat.Dense).Copy(proc.a)
+		f.Slice(0, d, d, 2*d).(*mat.Dense).Copy(proc.b)
+		for i := 0; i < d; i++ {
+			f.Set(d+i, i, 1)
+		}
+		for i := 2 * d; i < n; i++ {
+			f.Set(i, i, 1)
+		}
+		var fp, want mat.Dense
+		fp.Mul(f, mat.NewDense(n, n, slices.Clone(p0)))
+		want.Mul(&fp, f.T())
+		for i := 0; i < d; i++ {
+			want.Set(i, i, want.At(i, i)+q[i])
+		}
+		for i := 2 * d; i < n; i++ {
+			want.Set(i, i, want.At(i, i)+q[i-d])
+		}
+		est, err := NewEstimator(proc, MarkerSet{Nodes: markers, TrackerToWorld: sim.Identity()}, EstimatorSettings{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		xs := make([]float64, d)
+		if err := proc.Step(xs, xs, xs, make([]float64, 2)); err != nil {
+			t.Fatal(err)
+		}
+		results := map[string][]float64{}
+		viaTangent := slices.Clone(p0)
+		est.propagate(viaTangent, q)
+		results["tangent"] = viaTangent
+		if no == 0 {
+			viaJacobians := slices.Clone(p0)
+			propagateWithJacobians(viaJacobians, d, proc.a.RawMatrix().Data, proc.b.RawMatrix().Data, q,
+				make([]float64, d*n), make([]float64, d*n), make([]float64, d*d))
+			results["jacobians"] = viaJacobians
+		}
+		scale := mat.Norm(&want, math.Inf(1))
+		for name, got := range results {
+			for i := 0; i < n; i++ {
+				for j := 0; j < n; j++ {
+					if e := math.Abs(got[i*n+j] - want.At(i, j)); e > 1e-12*scale {
+						t.Fatalf("%d markers, %s: P[%d,%d] = %g, dense %g", len(markers), name, i, j, got[i*n+j], want.At(i, j))
+					}
 				}
 			}
 		}

@@ -38,7 +38,9 @@ func TestDefaultGateIsChiSquareQuantile(t *testing.T) {
 // coordinates; Kalman 1960), and x_{k−1} was measured the tick before, so
 // from the second observation on the estimate equals the true state. The
 // tolerance, 1e-9 m, covers the step's own solve tolerance (0.1 nm) and
-// the 1 nm noise floor; velocities are compared to 1e-9 m / h.
+// the 1 nm noise floor; velocities are compared to 1e-9 m / h. The filter
+// runs without marker offsets (NoMarkerOffsets), whose update this
+// argument is about.
 func TestEstimatorZeroNoiseAllMarkersIsExact(t *testing.T) {
 	c := loadDemoCell(t)
 	rng := rand.New(rand.NewPCG(1, 1))
@@ -55,7 +57,7 @@ func TestEstimatorZeroNoiseAllMarkersIsExact(t *testing.T) {
 	for i := range all {
 		all[i] = i
 	}
-	est, err := NewEstimator(proc, MarkerSet{Nodes: all, NoiseM: 0, TrackerToWorld: c.TrackerToWorld}, EstimatorSettings{})
+	est, err := NewEstimator(proc, MarkerSet{Nodes: all, NoiseM: 0, TrackerToWorld: c.TrackerToWorld}, EstimatorSettings{NoMarkerOffsets: true})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -83,18 +83,48 @@ func scaledIdentity(n int, v float64) *mat.Dense {
 // the prior is 10³ times the posterior and both forms cancel, and within
 // 1e-12 after it). The prior is built from the formula documented on
 // initialise; gating is switched off so both filters use every marker.
+//
+// Run twice: without marker offsets (NoMarkerOffsets), and with them, where
+// the textbook filter works on the augmented state (x_k, x_{k−1}, o) with
+// F = blkdiag(F_x, I), Q = blkdiag(Q_x, σ_o²·h·I), a marker's rows of H
+// selecting its node and its offset, and the prior blkdiag(P_x,
+// σ_o0²·I) with zero offsets (the model documented on Estimator). The
+// truth's markers then carry a constant bias of a few centimetres, which
+// the textbook filter does not need to know: both filters must agree
+// whatever the measurements.
 func TestEstimatorMatchesTextbookKalman(t *testing.T) {
+	for _, withOffsets := range []bool{false, true} {
+		name := "plain"
+		if withOffsets {
+			name = "marker offsets"
+		}
+		t.Run(name, func(t *testing.T) { checkTextbookKalman(t, withOffsets) })
+	}
+}
+
+func checkTextbookKalman(t *testing.T, withOffsets bool) {
 	rng := rand.New(rand.NewPCG(5, 1960))
 	const nodes, nj, h = 4, 3, 0.004
 	proc := newLinearProcess(rng, nodes, nj, h)
-	d, n := proc.Dim(), 2*proc.Dim()
 	ms := MarkerSet{
 		Nodes:          []int{1, 2, 3, 3, 0},
 		NoiseM:         1e-3,
 		TrackerToWorld: sim.PoseFromXYZRPY([3]float64{0.3, -0.2, 1.1}, [3]float64{0.1, -0.2, 0.3}),
 	}
+	no := 0
+	if withOffsets {
+		no = 3 * len(ms.Nodes)
+	}
+	d, n := proc.Dim(), 2*proc.Dim()+no
 	set := EstimatorSettings{ProcessAccelMPerS2: 3, ProcessPositionM: 2e-6, InitialShiftM: 0.03,
-		InitialLocalM: 0.01, InitialSpeedMPerS: 0.1, GateChi2: math.Inf(1)}
+		InitialLocalM: 0.01, InitialSpeedMPerS: 0.1, GateChi2: math.Inf(1),
+		MarkerOffsetWalkMPerSqrtS: 0.004, InitialMarkerOffsetM: 0.02, NoMarkerOffsets: !withOffsets}
+	bias := make([]float64, 3*len(ms.Nodes)) // the truth's marker bias, m
+	if withOffsets {
+		for i := range bias {
+			bias[i] = 0.03 * (2*rng.Float64() - 1)
+		}
+	}
 	est, err := NewEstimator(proc, ms, set)
 	if err != nil {
 		t.Fatal(err)
@@ -125,7 +155,7 @@ func TestEstimatorMatchesTextbookKalman(t *testing.T) {
 	// The textbook filter's matrices.
 	f := mat.NewDense(n, n, nil)
 	f.Slice(0, d, 0, d).(*mat.Dense).Copy(proc.a)
-	f.Slice(0, d, d, n).(*mat.Dense).Copy(proc.b)
+	f.Slice(0, d, d, 2*d).(*mat.Dense).Copy(proc.b)
 	for i := 0; i < d; i++ {
 		f.Set(d+i, i, 1)
 	}
@@ -134,6 +164,10 @@ func TestEstimatorMatchesTextbookKalman(t *testing.T) {
 		if !proc.Fixed(i) {
 			qm.Set(i, i, qStd*qStd)
 		}
+	}
+	for i := 2 * d; i < n; i++ {
+		f.Set(i, i, 1)
+		qm.Set(i, i, set.MarkerOffsetWalkMPerSqrtS*set.MarkerOffsetWalkMPerSqrtS*h)
 	}
 	var kf textbookKF
 
@@ -164,18 +198,19 @@ func TestEstimatorMatchesTextbookKalman(t *testing.T) {
 		jointsAt(t0+float64(k)*h, q)
 		var obs []MarkerObs
 		var z []float64
-		var rows []int
+		var rows, markersSeen []int
 		for m, node := range ms.Nodes {
 			if k > 0 && rng.Float64() < 0.35 {
 				continue
 			}
 			var pw [3]float64
 			for a := range 3 {
-				pw[a] = xCur[3*node+a] + ms.NoiseM*rng.NormFloat64()
+				pw[a] = xCur[3*node+a] + bias[3*m+a] + ms.NoiseM*rng.NormFloat64()
 			}
 			obs = append(obs, MarkerObs{Marker: m, PosTrackerM: trackerFromWorld.Apply(pw)})
 			z = append(z, pw[:]...)
 			rows = append(rows, 3*node, 3*node+1, 3*node+2)
+			markersSeen = append(markersSeen, m)
 		}
 		capture := t0 + float64(k)*h + (rng.Float64()-0.5)*0.6*h
 		if err := est.Observe(capture, q, obs, &rep); err != nil {
@@ -189,8 +224,13 @@ func TestEstimatorMatchesTextbookKalman(t *testing.T) {
 				t.Fatal(err)
 			}
 			x0 := append(append([]float64(nil), rest...), rest...)
+			x0 = append(x0, make([]float64, no)...)
 			kf.x = mat.NewVecDense(n, x0)
-			kf.p = textbookPrior(proc, set)
+			kf.p = mat.NewDense(n, n, nil)
+			kf.p.Slice(0, 2*d, 0, 2*d).(*mat.Dense).Copy(textbookPrior(proc, set))
+			for i := 2 * d; i < n; i++ {
+				kf.p.Set(i, i, set.InitialMarkerOffsetM*set.InitialMarkerOffsetM)
+			}
 		} else {
 			for j := kLast + 1; j <= k; j++ {
 				// Joints at the intermediate grid time: linear between the
@@ -199,7 +239,7 @@ func TestEstimatorMatchesTextbookKalman(t *testing.T) {
 				for i := range qMid {
 					qMid[i] = qLast[i] + w*(q[i]-qLast[i])
 				}
-				proc.inputTo(u[:d], qMid)
+				proc.inputTo(u[:d], qMid) // u is zero on x_{k−1} and o
 				kf.predict(f, u, qm)
 			}
 		}
@@ -208,6 +248,9 @@ func TestEstimatorMatchesTextbookKalman(t *testing.T) {
 			hm = mat.NewDense(len(rows), n, nil)
 			for i, c := range rows {
 				hm.Set(i, c, 1)
+				if withOffsets {
+					hm.Set(i, 2*d+3*markersSeen[i/3]+i%3, 1)
+				}
 			}
 		}
 		kf.update(t, hm, z, r)

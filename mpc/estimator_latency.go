@@ -211,7 +211,7 @@ func (e *Estimator) PredictTo(xCur, xPrev []float64, applyTimeS float64) error {
 	}
 	cur, prev, next := e.predCur, e.predPrev, e.predNext
 	copy(cur, e.mean[:e.d])
-	copy(prev, e.mean[e.d:])
+	copy(prev, e.mean[e.d:2*e.d])
 	tF := e.gridTime(e.k)
 	e.trackingOffsetTo(e.bias)
 	for j := e.k + 1; j <= k; j++ {

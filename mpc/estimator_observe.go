@@ -124,23 +124,27 @@ func (e *Estimator) advance(mean, cov []float64, from, to int64, end, bias []flo
 	d := e.d
 	h2a := e.h * e.h * e.set.ProcessAccelMPerS2
 	q := h2a*h2a + e.set.ProcessPositionM*e.set.ProcessPositionM
-	for i := range e.variances {
+	for i := range e.fixed {
 		if e.fixed[i] {
 			e.variances[i] = 0
 		} else {
 			e.variances[i] = q
 		}
 	}
+	qo := e.set.MarkerOffsetWalkMPerSqrtS * e.set.MarkerOffsetWalkMPerSqrtS * e.h
+	for i := e.d; i < len(e.variances); i++ {
+		e.variances[i] = qo
+	}
 	tF, tEnd := e.gridTime(from), e.gridTime(to)
 	for j := from + 1; j <= to; j++ {
 		e.pathJoints(e.qStep, e.gridTime(j), tF, e.joints, tEnd, end, bias)
-		if err := e.proc.Step(e.stepNext, mean[:d], mean[d:], e.qStep); err != nil {
+		if err := e.proc.Step(e.stepNext, mean[:d], mean[d:2*d], e.qStep); err != nil {
 			return err
 		}
 		if cov != nil {
 			e.propagate(cov, e.variances)
 		}
-		copy(mean[d:], mean[:d])
+		copy(mean[d:2*d], mean[:d])
 		copy(mean[:d], e.stepNext)
 	}
 	return nil
@@ -190,10 +194,12 @@ func (e *Estimator) Prepare(nextCaptureTimeS float64) error {
 //	P_xx = σ_l²·I + σ_s²·(11ᵀ ⊗ I₃)   (each node's own offset and a common shift),
 //	P    = [[P_xx, P_xx], [P_xx, P_xx + h²σ_v²·I]]   (x_{k−1} = x_k − h·v),
 //
-// over the free coordinates (fixed ones have zero variance). The markers
-// of the observation then update this prior like any other.
+// over the free coordinates (fixed ones have zero variance), and marker
+// offsets of zero mean and variance σ_o0²·I (InitialMarkerOffsetM),
+// independent of x. The markers of the observation then update this prior
+// like any other.
 func (e *Estimator) initialise(joints []float64) error {
-	d, n := e.d, 2*e.d
+	d, n := e.d, e.n
 	if err := e.proc.RestPoseTo(e.predCur, joints); err != nil {
 		return fmt.Errorf("mpc: rest pose for the first observation: %w", err)
 	}
@@ -203,7 +209,7 @@ func (e *Estimator) initialise(joints []float64) error {
 		}
 	}
 	copy(e.wMean[:d], e.predCur)
-	copy(e.wMean[d:], e.predCur)
+	copy(e.wMean[d:2*d], e.predCur)
 	sl2 := e.set.InitialLocalM * e.set.InitialLocalM
 	ss2 := e.set.InitialShiftM * e.set.InitialShiftM
 	hv := e.h * e.set.InitialSpeedMPerS
@@ -227,6 +233,11 @@ func (e *Estimator) initialise(joints []float64) error {
 			p[(d+i)*n+d+j] = v
 		}
 		p[(d+i)*n+d+i] += hv * hv
+	}
+	clear(e.wMean[2*d:])
+	so2 := e.set.InitialMarkerOffsetM * e.set.InitialMarkerOffsetM
+	for i := 2 * d; i < n; i++ {
+		p[i*n+i] = so2
 	}
 	return nil
 }

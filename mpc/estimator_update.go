@@ -18,20 +18,29 @@ import (
 // (Cholesky) and W = L⁻¹·H·P the update is x ← x + Wᵀ·(L⁻¹ν) and
 // P ← P − Wᵀ·W, a symmetric rank-3m update computed on the upper triangle
 // and mirrored: 3m·N² multiply-adds for N = 2D and m markers.
+// With marker offsets in the state (see Estimator), a marker measures its
+// node plus its offset, so its rows of H have two ones: P·Hᵀ is a sum of
+// two sets of rows of P and H·P·Hᵀ a sum of four 3×3 blocks.
 // e.world holds the markers' world positions, in observation order.
 func (e *Estimator) gateAndUpdate(markers []MarkerObs, rep *EstimatorReport) error {
-	n := 2 * e.d
+	n := e.n
 	p, x := e.wCov, e.wMean
 	r := e.markers.NoiseM*e.markers.NoiseM + MarkerNoiseFloorM*MarkerNoiseFloorM
 	e.accepted = e.accepted[:0]
 	for i, mo := range markers {
-		c := 3 * e.markers.Nodes[mo.Marker]
+		c, o := 3*e.markers.Nodes[mo.Marker], e.offsetIndex(mo.Marker)
 		var nu [3]float64
 		var s [9]float64
 		for a := range 3 {
 			nu[a] = e.world[i][a] - x[c+a]
 			for b := range 3 {
 				s[3*a+b] = p[(c+a)*n+c+b]
+			}
+			if o >= 0 {
+				nu[a] -= x[o+a]
+				for b := range 3 {
+					s[3*a+b] += p[(c+a)*n+o+b] + p[(o+a)*n+c+b] + p[(o+a)*n+o+b]
+				}
 			}
 			s[4*a] += r
 		}
@@ -62,15 +71,24 @@ func (e *Estimator) gateAndUpdate(markers []MarkerObs, rep *EstimatorReport) err
 	// S, ν and the rows of P for the measured coordinates.
 	s, nu, wt := e.sMat[:k*k], e.innov[:k], e.wt[:k*n]
 	for ai, i := range e.accepted {
-		ci := 3 * e.markers.Nodes[markers[i].Marker]
+		ci, oi := 3*e.markers.Nodes[markers[i].Marker], e.offsetIndex(markers[i].Marker)
 		for a := range 3 {
 			row := 3*ai + a
+			w := wt[row*n : (row+1)*n]
 			nu[row] = e.world[i][a] - x[ci+a]
-			copy(wt[row*n:(row+1)*n], p[(ci+a)*n:(ci+a+1)*n])
+			copy(w, p[(ci+a)*n:(ci+a+1)*n])
+			if oi >= 0 {
+				nu[row] -= x[oi+a]
+				floats.Add(w, p[(oi+a)*n:(oi+a+1)*n])
+			}
 			for bj, j := range e.accepted {
-				cj := 3 * e.markers.Nodes[markers[j].Marker]
+				cj, oj := 3*e.markers.Nodes[markers[j].Marker], e.offsetIndex(markers[j].Marker)
 				for b := range 3 {
-					s[row*k+3*bj+b] = p[(ci+a)*n+cj+b]
+					v := w[cj+b]
+					if oj >= 0 {
+						v += w[oj+b]
+					}
+					s[row*k+3*bj+b] = v
 				}
 			}
 			s[row*k+row] += r
@@ -112,6 +130,15 @@ func (e *Estimator) gateAndUpdate(markers []MarkerObs, rep *EstimatorReport) err
 		}
 	}
 	return nil
+}
+
+// offsetIndex returns the state index of marker m's first offset
+// coordinate, or −1 without marker offsets.
+func (e *Estimator) offsetIndex(m int) int {
+	if e.no == 0 {
+		return -1
+	}
+	return 2*e.d + 3*m
 }
 
 // chi2of3 returns νᵀS⁻¹ν for a 3×3 symmetric S (row-major), and false if
