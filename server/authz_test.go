@@ -4,6 +4,7 @@ import (
 	"context"
 	"crypto/tls"
 	"net"
+	"os"
 	"path/filepath"
 	"testing"
 	"time"
@@ -332,5 +333,52 @@ func TestSecurityWithoutTLSAddsNothingAndWarnsBeyondLoopback(t *testing.T) {
 	}
 	if w := logs.FilterLevelExact(zapcore.WarnLevel).Len(); w != 1 {
 		t.Errorf("%d warnings for an insecure non-loopback listener, want 1: %v", w, logs.All())
+	}
+}
+
+// Renewed certificate files take effect at the next handshake, without a
+// restart; files that do not load leave the last good ones in use.
+func TestRenewedCertificatesTakeEffect(t *testing.T) {
+	f := newSecureFixture(t, AuthzPolicy{Controllers: []string{DevControllerIdentity}})
+	oldCA := filepath.Join(t.TempDir(), "old-ca.pem")
+	if err := os.WriteFile(oldCA, readFile(t, f.path(DevCAFile)), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	oldCtl, oldKey := filepath.Join(t.TempDir(), "ctl.pem"), filepath.Join(t.TempDir(), "ctl-key.pem")
+	os.WriteFile(oldCtl, readFile(t, f.path(DevControlFile)), 0o644)
+	os.WriteFile(oldKey, readFile(t, f.path(DevControlKey)), 0o600)
+	if got := callCodes(t, f.dial(t, oldCA, oldCtl, oldKey)); got["Start"] != codes.Unimplemented {
+		t.Fatalf("before renewal: Start %v", got["Start"])
+	}
+
+	// A whole new CA and certificates, as a renewal from another issuer.
+	if _, err := WriteDevCerts(f.dir, DevCertsOptions{Overwrite: true}); err != nil {
+		t.Fatal(err)
+	}
+	future := time.Now().Add(time.Hour)
+	for _, n := range []string{DevServerFile, DevServerKey, DevCAFile} {
+		if err := os.Chtimes(f.path(n), future, future); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if got := callCodes(t, f.dial(t, f.path(DevCAFile), f.path(DevControlFile), f.path(DevControlKey))); got["Start"] != codes.Unimplemented {
+		t.Errorf("after renewal, the new controller certificate: Start %v, want Unimplemented (allowed)", got["Start"])
+	}
+	if c := healthCode(t, f.dial(t, oldCA, oldCtl, oldKey)); c != codes.Unavailable {
+		t.Errorf("after renewal, a client trusting only the old CA: health %v, want Unavailable", c)
+	}
+
+	// A key that does not match its certificate (a copy half done): the
+	// renewed files stay in use and the failure is logged.
+	if err := os.WriteFile(f.path(DevServerKey), readFile(t, f.path(DevWatchKey)), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	later := future.Add(time.Hour)
+	os.Chtimes(f.path(DevServerKey), later, later)
+	if got := callCodes(t, f.dial(t, f.path(DevCAFile), f.path(DevControlFile), f.path(DevControlKey))); got["Start"] != codes.Unimplemented {
+		t.Errorf("after a bad key: Start %v, want Unimplemented (the last good files serve)", got["Start"])
+	}
+	if f.logs.FilterMessage("renewed TLS files do not load; the previous certificates stay in use").Len() == 0 {
+		t.Error("the failed reload was not logged")
 	}
 }

@@ -8,6 +8,8 @@ import (
 	"net"
 	"os"
 	"strings"
+	"sync"
+	"time"
 )
 
 // TLSFiles names the server's TLS material, all PEM files.
@@ -37,8 +39,53 @@ func (f TLSFiles) Mutual() bool { return f.ClientCAFile != "" }
 // this config with a client CA but without the Authorizer: NewSecurity
 // keeps the two together.
 //
+// The files are read now (an error names the bad one) and read again at
+// a handshake after any of them changed (size or modification time), so
+// renewed certificates take effect without a restart; if the new files do
+// not load (a key not matching its certificate halfway through a copy),
+// the last good ones stay in use and reload reports the error (NewSecurity
+// logs it). Connections already open keep the certificates they started
+// with.
+//
 // It returns nil, nil when f configures no TLS.
 func ServerTLSConfig(f TLSFiles) (*tls.Config, error) {
+	r, err := newTLSReloader(f, nil)
+	if r == nil || err != nil {
+		return nil, err
+	}
+	return r.serverConfig(), nil
+}
+
+// tlsReloader holds the TLS config built from TLSFiles and rebuilds it when
+// the files change.
+type tlsReloader struct {
+	files   TLSFiles
+	onError func(error) // a reload failed; nil: ignore
+
+	mu     sync.Mutex
+	cfg    *tls.Config
+	stamps [3]fileStamp
+}
+
+type fileStamp struct {
+	size    int64
+	modTime time.Time
+}
+
+func stampFiles(f TLSFiles) [3]fileStamp {
+	var s [3]fileStamp
+	for i, p := range []string{f.CertFile, f.KeyFile, f.ClientCAFile} {
+		if p == "" {
+			continue
+		}
+		if fi, err := os.Stat(p); err == nil {
+			s[i] = fileStamp{fi.Size(), fi.ModTime()}
+		}
+	}
+	return s
+}
+
+func newTLSReloader(f TLSFiles, onError func(error)) (*tlsReloader, error) {
 	if !f.On() {
 		if f.Mutual() {
 			return nil, errors.New("-tls-client-ca-file needs -tls-cert-file and -tls-key-file: client certificates are only asked for over TLS")
@@ -48,6 +95,49 @@ func ServerTLSConfig(f TLSFiles) (*tls.Config, error) {
 	if f.CertFile == "" || f.KeyFile == "" {
 		return nil, errors.New("give -tls-cert-file and -tls-key-file together")
 	}
+	r := &tlsReloader{files: f, onError: onError, stamps: stampFiles(f)}
+	cfg, err := loadTLSFiles(f)
+	if err != nil {
+		return nil, err
+	}
+	r.cfg = cfg
+	return r, nil
+}
+
+// serverConfig is the config to give the server: each handshake gets the
+// current one.
+func (r *tlsReloader) serverConfig() *tls.Config {
+	return &tls.Config{
+		MinVersion: tls.VersionTLS13,
+		NextProtos: []string{"h2"},
+		GetConfigForClient: func(*tls.ClientHelloInfo) (*tls.Config, error) {
+			return r.current(), nil
+		},
+	}
+}
+
+// current returns the config for a handshake, reloading the files first if
+// they changed since they were last loaded.
+func (r *tlsReloader) current() *tls.Config {
+	stamps := stampFiles(r.files)
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	if stamps != r.stamps {
+		r.stamps = stamps
+		cfg, err := loadTLSFiles(r.files)
+		if err != nil {
+			if r.onError != nil {
+				r.onError(err)
+			}
+		} else {
+			r.cfg = cfg
+		}
+	}
+	return r.cfg
+}
+
+// loadTLSFiles reads f into a complete server config.
+func loadTLSFiles(f TLSFiles) (*tls.Config, error) {
 	cert, err := tls.LoadX509KeyPair(f.CertFile, f.KeyFile)
 	if err != nil {
 		return nil, fmt.Errorf("-tls-cert-file %s / -tls-key-file %s: %w", f.CertFile, f.KeyFile, err)
@@ -55,7 +145,10 @@ func ServerTLSConfig(f TLSFiles) (*tls.Config, error) {
 	cfg := &tls.Config{
 		Certificates: []tls.Certificate{cert},
 		MinVersion:   tls.VersionTLS13,
-		ClientAuth:   tls.NoClientCert,
+		// gRPC clients insist on ALPN "h2"; credentials.NewTLS adds it to
+		// the outer config only, so every config a handshake uses says it.
+		NextProtos: []string{"h2"},
+		ClientAuth: tls.NoClientCert,
 	}
 	if f.Mutual() {
 		pool, err := LoadCertPool(f.ClientCAFile)

@@ -1,6 +1,7 @@
 package server
 
 import (
+	"crypto/tls"
 	"errors"
 	"fmt"
 
@@ -77,9 +78,15 @@ func NewSecurity(c SecurityConfig, log *zap.Logger, m *Metrics) (*Security, erro
 	if err := CheckSecurityConfig(c); err != nil {
 		return nil, err
 	}
-	tcfg, err := ServerTLSConfig(c.TLS)
+	reloader, err := newTLSReloader(c.TLS, func(err error) {
+		log.Error("renewed TLS files do not load; the previous certificates stay in use", zap.Error(err))
+	})
 	if err != nil {
 		return nil, err
+	}
+	var tcfg *tls.Config
+	if reloader != nil {
+		tcfg = reloader.serverConfig()
 	}
 	s := &Security{cfg: c}
 	loopback := ListenIsLoopback(c.Listen)

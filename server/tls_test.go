@@ -1,6 +1,7 @@
 package server
 
 import (
+	"crypto/tls"
 	"crypto/x509"
 	"encoding/pem"
 	"errors"
@@ -182,8 +183,11 @@ func TestServerTLSConfigErrors(t *testing.T) {
 		}
 	}
 	cfg, err := ServerTLSConfig(TLSFiles{CertFile: p(DevServerFile), KeyFile: p(DevServerKey), ClientCAFile: p(DevCAFile)})
-	if err != nil || cfg == nil || cfg.ClientCAs == nil {
+	if err != nil || cfg == nil || cfg.GetConfigForClient == nil {
 		t.Fatalf("good files: %v, %+v", err, cfg)
+	}
+	if hs, err := cfg.GetConfigForClient(nil); err != nil || hs.ClientCAs == nil || hs.ClientAuth != tls.VerifyClientCertIfGiven || len(hs.Certificates) != 1 {
+		t.Fatalf("the handshake's config: %v, %+v", err, hs)
 	}
 	if cfg, err := ServerTLSConfig(TLSFiles{}); cfg != nil || err != nil {
 		t.Errorf("no files: %v, %v; want plaintext (nil, nil)", cfg, err)
