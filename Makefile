@@ -80,3 +80,8 @@ vuln:
 		rm -rf $$tmp; \
 	fi
 	$(GOBIN)/govulncheck -db file://$(VULNDB_DIR) $(PKGS)
+
+## fit-demo: fit the demo figure to the demo's open-loop capture (run make demo first), then put the fitted cell to the test.
+.PHONY: fit-demo
+fit-demo:
+	$(GO) run ./client/cmd/tautline fit demo-out/open-loop.tlcap --cell testdata/demo/cell.json --params string_rest_lengths,node_masses,damping --duration-s 3.9 --out demo-out/fitted-cell.json --compare-cue testdata/demo/cue.csv --compare-profile testdata/demo/standard.mismatch.json

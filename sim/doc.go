@@ -109,6 +109,16 @@
 // after their first call with given sizes (tested with
 // testing.AllocsPerRun).
 //
+// # Parameter fit
+//
+// The fit (FitProblem, Fit) uses the same factors: FitParam derivatives
+// (rest lengths, stiffnesses, masses and mass scales, drag and rod-damping
+// scales, tracker offset) are propagated from the rest pose (a fixed point
+// of the step: (I − ∂Φ/∂x_t − ∂Φ/∂x_{t−1})·dx*/dθ = ∂Φ/∂θ) through every
+// step, checked against diff/fd; LevenbergMarquardt minimises the marker
+// residuals within bounds; FitStatistics gives Gauss–Newton standard errors
+// and names undetermined directions; MarshalCell writes the fitted cell.
+//
 // # Who may import it
 //
 // sim imports nothing of the project. mpc, server and client import it.
