@@ -89,6 +89,17 @@ type Budget func() bool
 // (no sensitivities) in the prepare phase. A reference file has no states;
 // then r_k is the file's.
 //
+// That removes the model's own offset from the reference. The figure's
+// offset from the model (strings a few percent long: the figure hangs
+// lower or tilted all the time) is a different one: the estimator explains
+// the markers with a state the model pulls back to the nominal hang, so a
+// rollout from it predicts the figure returns to the reference by itself.
+// SetMarkerOffset passes in the estimator's marker offsets d
+// (Estimator.MarkerOffsetTo); the tracking residual becomes
+// p(x_k) + d − r_k, the disturbance-model form of offset-free MPC (Muske &
+// Badgwell 2002; Pannocchia & Rawlings 2003), and the planner corrects the
+// static error.
+//
 // # Cost and constraints
 //
 // With step states x_k, k = 1…N, step joints q_k = q̄_k + δ_k:
@@ -134,6 +145,8 @@ type Planner struct {
 	tickS, hp            float64
 	basis                *correctionBasis
 	limits               []sim.JointLimit
+
+	offset []float64 // marker offset cancelled by the tracking cost (SetMarkerOffset); empty: none
 
 	st plannerState
 	lz linearisation

@@ -47,6 +47,7 @@ func (p *Planner) Prepare(tS float64, qCmd, qCmdPrev, xPred, xPredPrev []float64
 	if err := p.modelReference(); err != nil {
 		return err
 	}
+	p.shiftReference()
 
 	if err := p.evaluate(st.c); err != nil {
 		return err
