@@ -2,8 +2,6 @@ package server
 
 import (
 	"context"
-	"errors"
-	"io"
 	"testing"
 	"time"
 
@@ -347,25 +345,37 @@ func TestSlowReaderIsEndedNotWaitedFor(t *testing.T) {
 	cfg := testConfig(t)
 	cfg.SendQueueTicks = 2
 	h := startBufconn(t, cfg)
-	h.loadAndArm()
-	c := h.connect(newPlant(t, h.cell))
-	// Send many observations without reading a command. The daemon must
-	// end the stream (ResourceExhausted) rather than block its tick path;
-	// the transport's own buffers absorb some commands first, so the
-	// number of observations needed is not exact.
-	var err error
+	// The smallest flow-control windows gRPC allows (64 KiB, which also
+	// turns off window growth), so the transport absorbs only about a
+	// hundred commands before the daemon's queue fills. The cell stays
+	// idle, so each tick is cheap.
+	conn := h.dial(grpc.WithInitialWindowSize(1<<16), grpc.WithInitialConnWindowSize(1<<16))
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	stream, err := pb.NewCellControlClient(conn).Drive(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := newPlant(t, h.cell)
+	p.hideMarkers = true
+	// Send observations without reading a command. The daemon must end
+	// the stream (ResourceExhausted) rather than block its tick path.
 	for i := 0; i < 20000 && err == nil; i++ {
-		err = c.stream.Send(c.p.observation())
-		c.p.t += h.cell.TickS
-		c.p.seq++
+		err = stream.Send(p.observation())
+		p.t += h.cell.TickS
+		p.seq++
 	}
-	for err == nil {
-		_, err = c.stream.Recv()
+	// A Send on an ended stream says io.EOF; Recv has the status. The
+	// commands sent before the end come first.
+	for {
+		if _, err = stream.Recv(); err != nil {
+			break
+		}
 	}
-	if status.Code(err) != codes.ResourceExhausted && !errors.Is(err, io.EOF) {
+	if status.Code(err) != codes.ResourceExhausted {
 		t.Fatalf("slow reader: %v, want ResourceExhausted", err)
 	}
-	deadline := time.Now().Add(5 * time.Second)
+	deadline := time.Now().Add(10 * time.Second)
 	for h.status().ControllerConnected {
 		if time.Now().After(deadline) {
 			t.Fatal("the slow reader's stream was not ended")

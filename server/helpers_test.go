@@ -41,6 +41,10 @@ func testConfig(t testing.TB) Config {
 	cfg.Cells = []string{demoCellPath}
 	cfg.CaptureDir = t.TempDir()
 	cfg.CaptureFlushIntervalS = 0.05
+	// Generous: a loaded 2-core machine under -race can pause a test's
+	// goroutines for a good part of a second. The stall tests set their
+	// own.
+	cfg.StallTimeoutS = 10
 	return cfg
 }
 
@@ -53,6 +57,21 @@ type harness struct {
 	client pb.CellControlClient
 	cell   *sim.Cell
 	done   chan error
+	lis    *bufconn.Listener // nil over TCP
+}
+
+// dial opens another client connection to a bufconn harness.
+func (h *harness) dial(opts ...grpc.DialOption) *grpc.ClientConn {
+	h.t.Helper()
+	opts = append(opts,
+		grpc.WithContextDialer(func(ctx context.Context, _ string) (net.Conn, error) { return h.lis.DialContext(ctx) }),
+		grpc.WithTransportCredentials(insecure.NewCredentials()))
+	conn, err := grpc.NewClient("passthrough:///bufconn", opts...)
+	if err != nil {
+		h.t.Fatal(err)
+	}
+	h.t.Cleanup(func() { conn.Close() })
+	return conn
 }
 
 func testLogger(t testing.TB) *zap.Logger {
@@ -71,7 +90,7 @@ func startBufconn(t testing.TB, cfg Config) *harness {
 		t.Fatal(err)
 	}
 	lis := bufconn.Listen(1 << 20)
-	h := &harness{t: t, srv: srv, done: make(chan error, 1)}
+	h := &harness{t: t, srv: srv, done: make(chan error, 1), lis: lis}
 	go func() { h.done <- srv.Serve(lis) }()
 	conn, err := grpc.NewClient("passthrough:///bufconn",
 		grpc.WithContextDialer(func(ctx context.Context, _ string) (net.Conn, error) { return lis.DialContext(ctx) }),
