@@ -21,14 +21,19 @@ import (
 // and the process's heap allocations per tick (client and server, gRPC
 // included; the daemon's compute path itself allocates nothing, see
 // TestLiveTickAllocatesNothing).
-func BenchmarkDriveLoopback100Hz(b *testing.B) { benchDrive(b, true) }
+func BenchmarkDriveLoopback100Hz(b *testing.B) { benchDrive(b, true, false) }
+
+// BenchmarkDriveLoopback100HzOpenLoop is the same with -no-correction: no
+// planner, so it shows what the transport and the estimator cost alone.
+func BenchmarkDriveLoopback100HzOpenLoop(b *testing.B) { benchDrive(b, true, true) }
 
 // BenchmarkDriveLoopbackUnpaced is the same exchange back to back, as fast
 // as the round trip allows.
-func BenchmarkDriveLoopbackUnpaced(b *testing.B) { benchDrive(b, false) }
+func BenchmarkDriveLoopbackUnpaced(b *testing.B) { benchDrive(b, false, false) }
 
-func benchDrive(b *testing.B, paced bool) {
+func benchDrive(b *testing.B, paced, openLoop bool) {
 	cfg := testConfig(b)
+	cfg.NoCorrection = openLoop
 	cfg.StallTimeoutS = 5
 	h := startTCP(b, cfg)
 	h.loadAndArm()
@@ -78,6 +83,7 @@ func benchDrive(b *testing.B, paced bool) {
 		}
 		rtt = append(rtt, time.Since(sent))
 		solve = append(solve, float64(cmd.SolveTimeUs))
+		c.lc.check(b, "next", cmd.Next.Positions) // every command of the run, against the limits
 		if cmd.Error != nil {
 			errors++
 		}

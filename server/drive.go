@@ -14,6 +14,11 @@ import (
 	pb "tautline/proto/tautline/v1"
 )
 
+// handoffWait is the longest the tick path waits, after queueing a
+// command, for the sender to hand it to the transport before it runs the
+// planner's prepare phase.
+const handoffWait = time.Millisecond
+
 // driveStream is one controller stream bound to a cell.
 type driveStream struct {
 	peer   string
@@ -83,13 +88,21 @@ func (s *Server) Drive(stream grpc.BidiStreamingServer[pb.Observation, pb.Comman
 	}
 
 	queue := s.cfg.SendQueueTicks
+	sent := make(chan struct{}, 1)
+	handoff := time.NewTimer(handoffWait)
+	defer handoff.Stop()
 	out := make(chan *commandSlot, queue)
 	sendErr := make(chan error, 1)
 	senderDone := make(chan struct{})
 	go func() {
 		defer close(senderDone)
 		for slot := range out {
-			if err := stream.Send(&slot.cmd); err != nil {
+			err := stream.Send(&slot.cmd)
+			select {
+			case sent <- struct{}{}:
+			default:
+			}
+			if err != nil {
 				sendErr <- err
 				for range out {
 				}
@@ -129,12 +142,24 @@ func (s *Server) Drive(stream grpc.BidiStreamingServer[pb.Observation, pb.Comman
 		h.mu.Lock()
 		h.eng.tick(r.obs, r.at, slot)
 		h.mu.Unlock()
+		select { // forget a hand-off signal left from an earlier command
+		case <-sent:
+		default:
+		}
 		select {
 		case out <- slot:
 		default:
 			msg := fmt.Sprintf("the controller did not read its commands: %d are waiting (-send-queue-ticks); read one command per observation", queue)
 			h.detach(ds, msg)
 			return status.Error(codes.ResourceExhausted, msg)
+		}
+		// Let the sender hand the command to the transport before the
+		// prepare phase takes this core for a few milliseconds; never wait
+		// longer than handoffWait for it.
+		handoff.Reset(handoffWait)
+		select {
+		case <-sent:
+		case <-handoff.C:
 		}
 		h.mu.Lock()
 		h.eng.prepareNext()
