@@ -19,6 +19,10 @@ import (
 // planner's prepare phase.
 const handoffWait = time.Millisecond
 
+// senderExitWait is how long a ending stream waits for its sender to
+// finish the command it is sending.
+const senderExitWait = 100 * time.Millisecond
+
 // driveStream is one controller stream bound to a cell.
 type driveStream struct {
 	peer   string
@@ -111,8 +115,14 @@ func (s *Server) Drive(stream grpc.BidiStreamingServer[pb.Observation, pb.Comman
 		}
 	}()
 	defer func() {
+		// A sender blocked in Send by a controller that does not read
+		// (flow control) only returns once this handler has returned and
+		// gRPC ends the stream, so wait for it only briefly.
 		close(out)
-		<-senderDone
+		select {
+		case <-senderDone:
+		case <-time.After(senderExitWait):
+		}
 	}()
 
 	// A slot is refilled only after the sender is done with it: at most

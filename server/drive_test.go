@@ -359,14 +359,28 @@ func TestSlowReaderIsEndedNotWaitedFor(t *testing.T) {
 	p := newPlant(t, h.cell)
 	p.hideMarkers = true
 	// Send observations without reading a command. The daemon must end
-	// the stream (ResourceExhausted) rather than block its tick path.
-	for i := 0; i < 20000 && err == nil; i++ {
-		err = stream.Send(p.observation())
-		p.t += h.cell.TickS
-		p.seq++
+	// the stream (ResourceExhausted) rather than block its tick path. The
+	// sends run in their own goroutine: once the daemon stops reading,
+	// flow control may block a Send until the stream is cancelled.
+	sendDone := make(chan struct{})
+	go func() {
+		defer close(sendDone)
+		for i := 0; i < 20000; i++ {
+			if stream.Send(p.observation()) != nil {
+				return
+			}
+			p.t += h.cell.TickS
+			p.seq++
+		}
+	}()
+	deadline := time.Now().Add(20 * time.Second)
+	for st := h.status(); st.Ticks == 0 || st.ControllerConnected; st = h.status() {
+		if time.Now().After(deadline) {
+			t.Fatalf("the slow reader's stream was not ended: %v", st)
+		}
+		time.Sleep(5 * time.Millisecond)
 	}
-	// A Send on an ended stream says io.EOF; Recv has the status. The
-	// commands sent before the end come first.
+	// Now read: the commands sent before the end, then the status.
 	for {
 		if _, err = stream.Recv(); err != nil {
 			break
@@ -375,11 +389,6 @@ func TestSlowReaderIsEndedNotWaitedFor(t *testing.T) {
 	if status.Code(err) != codes.ResourceExhausted {
 		t.Fatalf("slow reader: %v, want ResourceExhausted", err)
 	}
-	deadline := time.Now().Add(10 * time.Second)
-	for h.status().ControllerConnected {
-		if time.Now().After(deadline) {
-			t.Fatal("the slow reader's stream was not ended")
-		}
-		time.Sleep(5 * time.Millisecond)
-	}
+	cancel()
+	<-sendDone
 }
