@@ -392,3 +392,39 @@ func TestSlowReaderIsEndedNotWaitedFor(t *testing.T) {
 	cancel()
 	<-sendDone
 }
+
+func TestReconnectInStandbyStaysInStandby(t *testing.T) {
+	h := startBufconn(t, testConfig(t))
+	h.loadAndArm()
+	c := h.connect(newPlant(t, h.cell))
+	for i := 0; i < 3; i++ {
+		c.step()
+	}
+	p := c.p
+	c.close() // a clean close in standby
+	deadline := time.Now().Add(5 * time.Second)
+	for h.status().ControllerConnected {
+		if time.Now().After(deadline) {
+			t.Fatal("the daemon did not notice the closed stream")
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+	if st := h.status(); st.State != pb.SessionState_SESSION_STATE_STANDBY {
+		t.Fatalf("after the controller left in standby: %v", st.State)
+	}
+	p.seq = 0
+	c2 := h.connect(p)
+	for i := 0; i < 3; i++ {
+		if cmd := c2.step(); cmd.State != pb.SessionState_SESSION_STATE_STANDBY || cmd.Error != nil {
+			t.Fatalf("tick %d after reconnecting: %v", i, cmd)
+		}
+	}
+	// The session goes on: Start works from here.
+	if _, err := h.client.Start(h.ctx(), &pb.StartRequest{CellName: h.cell.Name}); err != nil {
+		t.Fatal(err)
+	}
+	if cmd := c2.step(); cmd.State != pb.SessionState_SESSION_STATE_LIVE {
+		t.Fatalf("after Start: %v", cmd.State)
+	}
+	c2.close()
+}
