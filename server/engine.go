@@ -34,6 +34,13 @@ type engine struct {
 	estRep mpc.EstimatorReport
 	x, xp  []float64 // estimated state at the tick and one tick before
 	xn, xq []float64 // predicted state for the next tick
+	// markerOffset is the estimator's marker offsets, handed to the
+	// planner before each prepare (offset-free tracking).
+	markerOffset []float64
+	// jointHist holds the measured joints of recent observations; qCapture
+	// is the joints at the frame's capture time interpolated from it.
+	jointHist jointHistory
+	qCapture  []float64
 
 	// Session.
 	state     pb.SessionState
@@ -119,6 +126,8 @@ func newEngine(cell *sim.Cell, cfg *Config, log *zap.Logger, onChange func()) (*
 		estRep:      mpc.EstimatorReport{Rejected: make([]mpc.RejectedMarker, 0, len(cell.Markers))},
 		x:           make([]float64, d), xp: make([]float64, d),
 		xn: make([]float64, d), xq: make([]float64, d),
+		markerOffset: make([]float64, 3*len(cell.Markers)),
+		jointHist:    newJointHistory(nq), qCapture: make([]float64, nq),
 		state: pb.SessionState_SESSION_STATE_IDLE, reason: "daemon started", since: time.Now(),
 		pose: vec(), prev: vec(), prev2: vec(), wish: vec(), target: vec(),
 		grep:  mpc.GuardReport{Acted: make([]mpc.BoundKind, nq)},

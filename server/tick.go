@@ -148,8 +148,14 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 		e.est.Reset()
 		e.haveCapture = false
 	}
+	if te.ok() {
+		e.jointHist.push(t, q)
+	}
 	if te.ok() && (!e.haveCapture || obs.GetCaptureTimeS() > e.lastCapture) {
-		err := e.est.Observe(obs.GetCaptureTimeS(), q, e.markers, &e.estRep)
+		// The frame is older than the joints measured with it: the
+		// estimator steps the figure with the joints of the frame's time.
+		e.jointHist.at(e.qCapture, obs.GetCaptureTimeS(), q)
+		err := e.est.Observe(obs.GetCaptureTimeS(), e.qCapture, e.markers, &e.estRep)
 		switch {
 		case err == nil:
 			e.haveCapture, e.lastCapture = true, obs.GetCaptureTimeS()
@@ -315,6 +321,7 @@ func (e *engine) plan(t float64) error {
 	tc := e.playT(t)
 	if !e.prepared || math.Abs(e.preparedT-tc) > e.tickS/2 {
 		e.prepStart = time.Now()
+		e.setMarkerOffset(a.planner)
 		if err := a.planner.Prepare(tc, e.prev, e.prev2, e.x, e.xp, e.budget); err != nil {
 			e.prepared = false
 			return err
@@ -322,6 +329,15 @@ func (e *engine) plan(t float64) error {
 	}
 	e.prepared = false
 	return a.planner.Feedback(a.plan, e.x, e.xp)
+}
+
+// setMarkerOffset hands the estimator's marker offsets to the planner, so
+// it tracks the markers where they are observed to sit relative to the
+// model's figure (offset-free tracking: see mpc.Planner and the
+// estimator's marker offsets). Call it before every Prepare.
+func (e *engine) setMarkerOffset(pl *mpc.Planner) {
+	e.est.MarkerOffsetTo(e.markerOffset)
+	pl.SetMarkerOffset(e.markerOffset)
 }
 
 // prepareNext runs the planner's prepare phase for the next tick, after
@@ -338,6 +354,7 @@ func (e *engine) prepareNext() {
 	}
 	e.prepStart = time.Now()
 	tc := e.playT(tNext)
+	e.setMarkerOffset(e.armed.planner)
 	err := e.armed.planner.Prepare(tc, e.prev, e.prev2, e.xn, e.xq, e.budget)
 	e.prepared, e.preparedT = err == nil, tc
 }
