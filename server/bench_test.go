@@ -35,6 +35,9 @@ func benchDrive(b *testing.B, paced, openLoop bool) {
 	cfg := testConfig(b)
 	cfg.NoCorrection = openLoop
 	cfg.StallTimeoutS = 5
+	if err := cfg.ApplyEnv(os.Getenv); err != nil { // TAUTLINED_* options apply to the benchmark's daemon
+		b.Fatal(err)
+	}
 	h := startTCP(b, cfg)
 	h.loadAndArm()
 	p := newPlant(b, h.cell)

@@ -70,6 +70,11 @@ type Config struct {
 	MaxLatencyS float64 `json:"max_latency_s"`
 	// PrepareBudgetS bounds the planner's prepare phase per tick, s.
 	PrepareBudgetS float64 `json:"prepare_budget_s"`
+	// PrepareDelayS is how long the tick path pauses after a command is
+	// handed to the transport before it runs the next prepare phase, so
+	// the command is written before the prepare takes a core, s. 0: no
+	// pause.
+	PrepareDelayS float64 `json:"prepare_delay_s"`
 	// StartToleranceRad: Start needs the last command within this of the
 	// cue's first pose on every joint (rad, or m for prismatic joints).
 	StartToleranceRad float64 `json:"start_tolerance_rad"`
@@ -118,6 +123,7 @@ func DefaultConfig() Config {
 		CoastFadeS:            0.5,
 		MaxLatencyS:           0.2,
 		PrepareBudgetS:        0.003,
+		PrepareDelayS:         0.0005,
 		StartToleranceRad:     0.01,
 		ReseedToleranceRad:    0.05,
 		WatchMinIntervalS:     0.1,
@@ -154,6 +160,7 @@ func (c *Config) options() []option {
 		{"coast-fade-s", "time over which the last correction fades out in coast, s", &c.CoastFadeS},
 		{"max-latency-s", "largest cue_time_s - capture_time_s accepted, s", &c.MaxLatencyS},
 		{"prepare-budget-s", "time the planner's prepare phase may take per tick, s", &c.PrepareBudgetS},
+		{"prepare-delay-s", "pause after a command goes out before the next prepare phase, so it is written first, s (0: none)", &c.PrepareDelayS},
 		{"start-tolerance-rad", "Start needs the arms this close to the cue's first pose, rad (m for prismatic joints)", &c.StartToleranceRad},
 		{"reseed-tolerance-rad", "a new controller stream further than this from the last command restarts the guard's history, rad (m)", &c.ReseedToleranceRad},
 		{"no-correction", "play cues open-loop (nominal through the guard), for comparison runs", &c.NoCorrection},
@@ -391,6 +398,9 @@ func (c *Config) Validate() error {
 	positive("prepare-budget-s", c.PrepareBudgetS)
 	positive("watch-min-interval-s", c.WatchMinIntervalS)
 	positive("shutdown-grace-s", c.ShutdownGraceS)
+	if !(c.PrepareDelayS >= 0) || c.PrepareDelayS > 0.01 {
+		bad("prepare-delay-s", "%v s must be from 0 to 0.01", c.PrepareDelayS)
+	}
 	if !(c.StartToleranceRad > 0) || math.IsInf(c.StartToleranceRad, 0) {
 		bad("start-tolerance-rad", "%v must be positive and finite", c.StartToleranceRad)
 	}

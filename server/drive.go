@@ -94,6 +94,7 @@ func (s *Server) Drive(stream grpc.BidiStreamingServer[pb.Observation, pb.Comman
 	queue := s.cfg.SendQueueTicks
 	sent := make(chan struct{}, 1)
 	handoff := time.NewTimer(handoffWait)
+	prepareDelay := seconds(s.cfg.PrepareDelayS)
 	defer handoff.Stop()
 	out := make(chan *commandSlot, queue)
 	sendErr := make(chan error, 1)
@@ -163,13 +164,21 @@ func (s *Server) Drive(stream grpc.BidiStreamingServer[pb.Observation, pb.Comman
 			h.detach(ds, msg)
 			return status.Error(codes.ResourceExhausted, msg)
 		}
-		// Let the sender hand the command to the transport before the
-		// prepare phase takes this core for a few milliseconds; never wait
-		// longer than handoffWait for it.
+		// Let the command leave before the prepare phase takes this core
+		// for a few milliseconds: wait (at most handoffWait) for the sender
+		// to hand it to the transport, then Config.PrepareDelayS more for
+		// the transport to write it. Measured on the 2-core machine with
+		// the controller in the same process: a busy prepare that starts at
+		// once delays the command's arrival by about its own length, while
+		// an idle pause of the same length delays nothing.
 		handoff.Reset(handoffWait)
 		select {
 		case <-sent:
 		case <-handoff.C:
+		}
+		if prepareDelay > 0 {
+			handoff.Reset(prepareDelay)
+			<-handoff.C
 		}
 		h.mu.Lock()
 		h.eng.prepareNext()
