@@ -310,10 +310,17 @@ var (
 // A session's tick, in order:
 //
 //  1. Observe the frame (its capture time, the joints measured at that
-//     time, the visible markers); act on the report (Stale: coast).
+//     time, the visible markers); act on the report (Stale: coast). The
+//     joints must be those of the capture time: a tracker frame is older
+//     than the joints measured with it, and joints one latency ahead of
+//     the markers move the string anchors ahead of the figure (on the demo
+//     that cost 3.5 mm of closed-loop RMS error; the server interpolates
+//     its recent measurements).
 //  2. RecordCommand the best guess of the joints at the coming apply time
 //     (the nominal plus the correction in force), then PredictTo that
-//     time: the planner's initial state.
+//     time: the planner's initial state. MarkerOffsetTo gives the marker
+//     offsets for Planner.SetMarkerOffset (they do not change with the
+//     prediction: a random walk's mean stays put).
 //  3. Plan and guard, then RecordCommand the joints actually sent for that
 //     apply time (it replaces the guess).
 //  4. Optionally, while waiting for the next frame, Prepare for its
