@@ -62,8 +62,10 @@
 // update (mpc.Estimator.Observe, then PredictTo for latency) → planner
 // feedback (mpc.Planner.Feedback) → guard (mpc.Guard.Apply, or StopTarget in
 // hold and fault) → command, which is queued for sending; then, after the
-// command is queued, the planner prepares the next tick (Prepare, bounded
-// by Config.PrepareBudgetS): the real-time iteration. Every command target
+// command has been handed to the transport and Config.PrepareDelayS has
+// passed (so the command is written before the prepare takes a core), the
+// planner prepares the next tick (Prepare, bounded by
+// Config.PrepareBudgetS): the real-time iteration. Every command target
 // leaves through the guard, in every state, and so does every preview
 // target (chained from the next target), so no input can make a command
 // leave the limits. The path allocates nothing in steady state.
