@@ -122,10 +122,12 @@ func stateErrors(xCur, xPrev, tCur, tPrev []float64, h float64) (posM, velMPerS 
 // seen neighbours only up to a swing about them, so this is not a loose
 // bound for this figure. For scale, the model's rest pose for the measured
 // joints (all one knows without markers) is logged too: it is off by
-// 168 mm RMS on this motion. Measured: 1.34 mm position, 12.0 mm/s
-// velocity (logged) with the marker offsets estimated (the default: the
-// filter then leaves part of what it sees to the offsets, whose truth here
-// is zero); 1.04 mm and 11.9 mm/s without them.
+// 168 mm RMS on this motion. Measured: 1.51 mm position, 15.7 mm/s
+// velocity (logged) with the default settings (marker offsets estimated:
+// the filter then leaves part of what it sees to the offsets, whose truth
+// here is zero; process acceleration 1.0 m/s², chosen for the closed
+// loop, see DefaultProcessAccelMPerS2). With 0.3 m/s²: 1.34 mm, and
+// 1.04 mm without the offsets.
 func TestEstimatorDemoFigureNoisyOccluded(t *testing.T) {
 	c := loadDemoCell(t)
 	rng := rand.New(rand.NewPCG(20, 2))
@@ -208,7 +210,8 @@ func TestEstimatorDemoFigureNoisyOccluded(t *testing.T) {
 // acceptance interval assumes independent ticks and would be ±2 % here;
 // successive errors are strongly correlated and the filter is an EKF, so
 // the bounds are our judgement: [0.8, 1.25], a covariance a quarter too
-// small or a fifth too large on average fails. Measured: 1.05. The truth
+// small or a fifth too large on average fails. Measured: 1.07 (1.05 with
+// the earlier default of 0.3 m/s²). The truth
 // has no marker offsets, so the filter runs without them
 // (NoMarkerOffsets) and its model is the truth's exactly; with them it
 // would carry 30 random-walk coordinates the truth does not have.

@@ -24,9 +24,9 @@ import (
 // 20 nodes within 1.5 mm (the bound of the no-bias check in
 // TestEstimatorDemoFigureNoisyOccluded). Our judgement: a few tenths of
 // the marker noise, far below the 3 cm biases and the 35 mm static error
-// the offsets exist to remove. Measured: within 3 mm from 0.70 s (swing)
-// and 0.85 s (still); last second 0.21 and 0.19 mm RMS, figure 0.49 and
-// 0.38 mm.
+// the offsets exist to remove. Measured: within 3 mm from 0.80 s (swing)
+// and 1.30 s (still); last second 0.30 and 0.41 mm RMS, figure 0.97 and
+// 0.82 mm.
 func TestEstimatorMarkerOffsetConvergesToBias(t *testing.T) {
 	for _, still := range []bool{false, true} {
 		c := loadDemoCell(t)

@@ -141,8 +141,8 @@ func runOffsetLoop(t *testing.T, prof *sim.MismatchProfile, ticks int, control, 
 // nominal hang, so it predicts no error and corrects none) must leave more
 // than 0.6 of open loop's over the last second: the offsets are what does
 // it. Measured when written (deterministic): open 34.8 mm, with offsets
-// 7.4 mm (0.21), without 34.8 mm; last second 35.0, 2.3 (0.066) and
-// 34.8 mm (0.99). About 1.7 s on the 2-core machine.
+// 7.3 mm (0.21), without 34.8 mm; last second 35.0, 2.1 (0.060) and
+// 34.9 mm (0.99). About 1.7 s on the 2-core machine.
 func TestPlannerCancelsStaticOffset(t *testing.T) {
 	prof := &sim.MismatchProfile{
 		Seed:                   20261201, // the standard profile's (testdata/demo/standard.mismatch.json)
