@@ -180,3 +180,37 @@ func FuzzObservation(f *testing.F) {
 		}
 	})
 }
+
+// BenchmarkLiveTick is the daemon's own work per live tick on the demo
+// cell, without gRPC: the feedback path (validate, estimator, planner
+// feedback, guard, preview, command and capture records) and, separately
+// timed, the next tick's prepare phase. One op is one tick.
+func BenchmarkLiveTick(b *testing.B) {
+	h, p, slot := newLiveHost(b)
+	obs := &pb.Observation{}
+	var feedback, prepare time.Duration
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		b.StopTimer()
+		p.fill(obs)
+		b.StartTimer()
+		t0 := time.Now()
+		h.mu.Lock()
+		h.eng.tick(obs, t0, slot)
+		t1 := time.Now()
+		h.eng.prepareNext()
+		h.mu.Unlock()
+		t2 := time.Now()
+		feedback += t1.Sub(t0)
+		prepare += t2.Sub(t1)
+		b.StopTimer()
+		if slot.cmd.State == pb.SessionState_SESSION_STATE_STANDBY {
+			b.Fatal("the cue ended; the benchmark needs a live session (use fewer ticks)")
+		}
+		p.apply(b, &slot.cmd)
+		b.StartTimer()
+	}
+	b.ReportMetric(float64(feedback.Microseconds())/float64(b.N), "feedback-µs/tick")
+	b.ReportMetric(float64(prepare.Microseconds())/float64(b.N), "prepare-µs/tick")
+}
