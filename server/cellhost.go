@@ -31,7 +31,7 @@ type cellHost struct {
 	changed    chan struct{} // closed and replaced on every status change
 }
 
-func newCellHost(cell *sim.Cell, cfg *Config, log *zap.Logger) (*cellHost, error) {
+func newCellHost(cell *sim.Cell, cfg *Config, log *zap.Logger, m *Metrics) (*cellHost, error) {
 	h := &cellHost{
 		cell:    cell,
 		cfg:     cfg,
@@ -43,6 +43,11 @@ func newCellHost(cell *sim.Cell, cfg *Config, log *zap.Logger) (*cellHost, error
 	if err != nil {
 		return nil, fmt.Errorf("cell %q: %w", cell.Name, err)
 	}
+	markerNodes := make([]int, len(cell.Markers))
+	for i, mk := range cell.Markers {
+		markerNodes[i] = mk.Node
+	}
+	eng.metrics = m.Cell(cell.Name, cell.JointNames(), markerNodes)
 	h.eng = eng
 	return h, nil
 }
@@ -218,6 +223,7 @@ func (h *cellHost) attach(ds *driveStream) error {
 			h.cell.Name, c.peer, c.opened.UTC().Format(time.RFC3339))
 	}
 	h.controller = ds
+	h.eng.metrics.ControllerConnected(true)
 	h.eng.streamOpened()
 	h.log.Info("controller connected", zap.String("peer", ds.peer), zap.String(fieldSession, h.eng.sessionID()), zap.String(fieldState, stateName(h.eng.state)))
 	h.eng.event(pb.EventKind_EVENT_KIND_CONTROLLER_CONNECTED, 0, 0, "controller "+ds.peer)
@@ -234,6 +240,7 @@ func (h *cellHost) detach(ds *driveStream, reason string) {
 		return
 	}
 	h.controller = nil
+	h.eng.metrics.ControllerConnected(false)
 	h.log.Info("controller disconnected", zap.String("peer", ds.peer), zap.String(fieldSession, h.eng.sessionID()), zap.String(fieldReason, reason))
 	h.eng.event(pb.EventKind_EVENT_KIND_CONTROLLER_DISCONNECTED, 0, 0, reason)
 	h.eng.controllerLost("controller lost: " + reason)

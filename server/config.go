@@ -88,6 +88,10 @@ type Config struct {
 	// WatchMinIntervalS is WatchStatus's default least interval between
 	// updates that are not state changes, s.
 	WatchMinIntervalS float64 `json:"watch_min_interval_s"`
+	// MetricsListen is where Prometheus metrics are served over HTTP at
+	// /metrics, host:port; empty: not served (the daemon still keeps them,
+	// see Server.Metrics).
+	MetricsListen string `json:"metrics_listen"`
 	// ShutdownGraceS is how long a graceful stop may take before the
 	// server stops hard, s.
 	ShutdownGraceS float64 `json:"shutdown_grace_s"`
@@ -165,6 +169,7 @@ func (c *Config) options() []option {
 		{"reseed-tolerance-rad", "a new controller stream further than this from the last command restarts the guard's history, rad (m)", &c.ReseedToleranceRad},
 		{"no-correction", "play cues open-loop (nominal through the guard), for comparison runs", &c.NoCorrection},
 		{"watch-min-interval-s", "default least interval between status updates that are not state changes, s", &c.WatchMinIntervalS},
+		{"metrics-listen", "serve Prometheus metrics over HTTP at /metrics on this host:port (empty: off)", &c.MetricsListen},
 		{"shutdown-grace-s", "time a graceful stop may take before the server stops hard, s", &c.ShutdownGraceS},
 		{"tls-cert-file", "server certificate (PEM)", &c.TLSCertFile},
 		{"tls-key-file", "server private key (PEM)", &c.TLSKeyFile},
@@ -377,6 +382,11 @@ func (c *Config) Validate() error {
 			bad("cell", "%s is named twice", p)
 		}
 		seen[p] = true
+	}
+	if c.MetricsListen != "" {
+		if _, _, err := net.SplitHostPort(c.MetricsListen); err != nil {
+			bad("metrics-listen", "%q is not host:port (%v)", c.MetricsListen, err)
+		}
 	}
 	if c.CaptureDir == "" {
 		bad("capture-dir", "empty; every session is recorded, so name a directory")

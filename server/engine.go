@@ -28,7 +28,8 @@ type engine struct {
 	markerIndex map[string]int
 	markerSeen  []bool
 	markers     []mpc.MarkerObs
-	onChange    func() // tells watchers the status changed
+	onChange    func()       // tells watchers the status changed
+	metrics     *CellMetrics // nil records nothing
 
 	est    *mpc.Estimator
 	estRep mpc.EstimatorReport
@@ -86,6 +87,8 @@ type engine struct {
 	ticks, rejected, bounded uint64
 	lastSeq                  uint64
 	lastSolveUs, maxSolveUs  uint32
+	feedbackS                float64         // this tick's feedback phase, s (metrics)
+	commandState             pb.SessionState // the state the last command carried
 	fallbackRun              int
 	sessionTicks             uint64
 }

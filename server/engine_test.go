@@ -19,7 +19,7 @@ func newLiveHost(t testing.TB) (*cellHost, *plant, *commandSlot) {
 	t.Helper()
 	cfg := testConfig(t)
 	srvCell := mustLoadDemoCell(t)
-	h, err := newCellHost(srvCell, &cfg, zap.NewNop())
+	h, err := newCellHost(srvCell, &cfg, zap.NewNop(), NewMetrics())
 	if err != nil {
 		t.Fatal(err)
 	}

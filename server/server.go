@@ -31,11 +31,12 @@ import (
 type Server struct {
 	pb.UnimplementedCellControlServer
 
-	cfg    Config
-	log    *zap.Logger
-	grpc   *grpc.Server
-	health *health.Server
-	cells  map[string]*cellHost
+	cfg     Config
+	log     *zap.Logger
+	grpc    *grpc.Server
+	health  *health.Server
+	cells   map[string]*cellHost
+	metrics *Metrics
 
 	quit     chan struct{} // closed by Shutdown: long streams end
 	quitOnce sync.Once
@@ -56,7 +57,7 @@ func New(cfg Config, logger *zap.Logger) (*Server, error) {
 	if logger == nil {
 		logger = zap.NewNop()
 	}
-	s := &Server{cfg: cfg, log: logger, cells: map[string]*cellHost{}, quit: make(chan struct{})}
+	s := &Server{cfg: cfg, log: logger, cells: map[string]*cellHost{}, quit: make(chan struct{}), metrics: NewMetrics()}
 	for _, path := range cfg.Cells {
 		cell, err := sim.LoadCell(path, os.ReadFile)
 		if err != nil {
@@ -65,7 +66,7 @@ func New(cfg Config, logger *zap.Logger) (*Server, error) {
 		if _, dup := s.cells[cell.Name]; dup {
 			return nil, fmt.Errorf("%s: cell name %q is already served by another cell file; names must be unique", path, cell.Name)
 		}
-		h, err := newCellHost(cell, &s.cfg, logger)
+		h, err := newCellHost(cell, &s.cfg, logger, s.metrics)
 		if err != nil {
 			return nil, fmt.Errorf("%s: %w", path, err)
 		}
@@ -156,6 +157,10 @@ func (s *Server) Shutdown(ctx context.Context) error {
 	s.log.Info("stopped")
 	return err
 }
+
+// Metrics returns the daemon's Prometheus metrics; serve them with
+// NewMetricsHTTPServer (tautlined does when -metrics-listen is set).
+func (s *Server) Metrics() *Metrics { return s.metrics }
 
 // CellNames lists the served cells' names, sorted.
 func (s *Server) CellNames() []string {

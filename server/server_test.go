@@ -3,7 +3,9 @@ package server
 import (
 	"context"
 	"net"
+	"net/http/httptest"
 	"sort"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -203,5 +205,29 @@ func TestShutdownEndsStreamsAndClosesTheCapture(t *testing.T) {
 	end := recs[len(recs)-1].GetSessionEnd()
 	if end == nil || !strings.Contains(end.Reason, "shut down") {
 		t.Fatalf("last record %v, want the session end", recs[len(recs)-1])
+	}
+}
+
+func TestMetricsCountLiveTicks(t *testing.T) {
+	h := startBufconn(t, testConfig(t))
+	c := goLive(t, h)
+	c.runUntil(pb.SessionState_SESSION_STATE_LIVE, 5)
+	for i := 0; i < 10; i++ {
+		c.step()
+	}
+	c.close()
+	rec := httptest.NewRecorder()
+	h.srv.Metrics().Handler().ServeHTTP(rec, httptest.NewRequest("GET", MetricsPath, nil))
+	body := rec.Body.String()
+	var live float64 = -1
+	for _, line := range strings.Split(body, "\n") {
+		if strings.HasPrefix(line, MetricTicks+"{") && strings.Contains(line, `state="live"`) && strings.Contains(line, h.cell.Name) {
+			f := strings.Fields(line)
+			live, _ = strconv.ParseFloat(f[len(f)-1], 64)
+		}
+	}
+	// 11 live ticks were answered after Start: the first one and ten more.
+	if live != 11 {
+		t.Fatalf("live tick counter %v, want 11; exposition:\n%s", live, body)
 	}
 }

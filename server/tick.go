@@ -159,6 +159,7 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 		switch {
 		case err == nil:
 			e.haveCapture, e.lastCapture = true, obs.GetCaptureTimeS()
+			e.metrics.RejectedMarkers(len(e.estRep.Rejected))
 		case errors.Is(err, mpc.ErrTimeOrder):
 			// The frame falls on the filter's last grid point; nothing new.
 		default:
@@ -194,15 +195,24 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 		var err error
 		switch {
 		case !te.ok():
+			e.metrics.Fallback(FallbackRejectedInput)
 		case estErr != nil:
 			err = fmt.Errorf("estimator: %w", estErr)
+			e.metrics.Fallback(FallbackEstimator)
 		case a.planner == nil:
 		case !e.est.Initialised():
 			err = mpc.ErrNotInitialised
+			e.metrics.Fallback(FallbackEstimator)
 		case stale:
+			e.metrics.Fallback(FallbackStaleFeedback)
 		default:
 			err = e.plan(t)
 			planned = err == nil
+			if planned {
+				e.metrics.TrackingErrorFrom(a.lc.ref, e.playT(t), e.x)
+			} else {
+				e.metrics.Fallback(FallbackPlannerError)
+			}
 		}
 		if err != nil {
 			te = tickError{code: pb.TickErrorCode_TICK_ERROR_CODE_PLANNER, message: "planner fallback (nominal with the correction held): " + err.Error()}
@@ -237,6 +247,9 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 	}
 	if !te.ok() {
 		e.rejected++
+		if te.code != pb.TickErrorCode_TICK_ERROR_CODE_PLANNER {
+			e.metrics.RejectedObservation(te.code)
+		}
 	}
 
 	if stop {
@@ -300,6 +313,8 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 		c.Error = &s.terr
 	}
 	solve := time.Since(recvAt)
+	e.feedbackS = solve.Seconds()
+	e.commandState = e.state
 	us := uint32(min(solve/time.Microsecond, math.MaxUint32))
 	c.SolveTimeUs = us
 	e.lastSolveUs = us
@@ -342,12 +357,18 @@ func (e *engine) setMarkerOffset(pl *mpc.Planner) {
 
 // prepareNext runs the planner's prepare phase for the next tick, after
 // the command went out (real-time iteration).
+//
+// It also records the tick's metrics, once per tick, since only now are
+// both of its phases known.
 func (e *engine) prepareNext() {
+	prepareS := -1.0
+	defer func() { e.metrics.ObserveTick(e.commandState, prepareS, e.feedbackS) }()
 	if e.state != pb.SessionState_SESSION_STATE_LIVE || e.armed == nil || e.armed.planner == nil ||
 		!e.est.Initialised() || !e.hasOrigin {
 		return
 	}
 	tNext := e.tickT + e.tickS
+	start := time.Now()
 	if err := e.est.PredictTo(e.xn, e.xq, tNext); err != nil {
 		e.prepared = false
 		return
@@ -357,6 +378,7 @@ func (e *engine) prepareNext() {
 	e.setMarkerOffset(e.armed.planner)
 	err := e.armed.planner.Prepare(tc, e.prev, e.prev2, e.xn, e.xq, e.budget)
 	e.prepared, e.preparedT = err == nil, tc
+	prepareS = time.Since(start).Seconds()
 }
 
 // fillBounds lists the bounds the guard enforced on this tick's target.
@@ -375,6 +397,7 @@ func (e *engine) fillBounds(s *commandSlot) {
 			b.Adjustment = 0
 		}
 		s.bptrs = append(s.bptrs, b)
+		e.metrics.BoundActed(j, kind)
 	}
 	for j, k := range e.grep.Acted {
 		if k == 0 {

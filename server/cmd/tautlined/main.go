@@ -18,6 +18,7 @@ import (
 	"fmt"
 	"io"
 	"net"
+	"net/http"
 	"os"
 	"os/signal"
 	"syscall"
@@ -110,6 +111,19 @@ func run(args []string, getenv func(string) string, stderr io.Writer) int {
 	}
 	serveErr := make(chan error, 1)
 	go func() { serveErr <- srv.Serve(lis) }()
+	var metricsSrv *http.Server
+	if cfg.MetricsListen != "" {
+		ml, err := net.Listen("tcp", cfg.MetricsListen)
+		if err != nil {
+			log.Error("cannot listen for metrics", zap.String("address", cfg.MetricsListen), zap.Error(err))
+			srv.Shutdown(context.Background())
+			<-serveErr
+			return 1
+		}
+		metricsSrv = server.NewMetricsHTTPServer(srv.Metrics())
+		log.Info("serving metrics", zap.String("address", ml.Addr().String()), zap.String("path", server.MetricsPath))
+		go metricsSrv.Serve(ml)
+	}
 
 	sig := make(chan os.Signal, 1)
 	signal.Notify(sig, syscall.SIGINT, syscall.SIGTERM)
@@ -129,6 +143,9 @@ func run(args []string, getenv func(string) string, stderr io.Writer) int {
 	code := 0
 	if err := srv.Shutdown(ctx); err != nil {
 		code = 1
+	}
+	if metricsSrv != nil {
+		metricsSrv.Shutdown(ctx)
 	}
 	if err := <-serveErr; err != nil {
 		log.Error("serving failed", zap.Error(err))
