@@ -115,10 +115,16 @@
 // the disk fails, the error is logged once and the session goes on
 // unrecorded.
 //
-// # Logs
+// # Logs and metrics
 //
 // zap, JSON by default or console. Fields: cell, session, tick, state,
 // reason. State changes and calls at info; slow ticks (Config.SlowTickS),
 // slow calls, fallbacks and reseeds at warn; one tick in
 // Config.DebugEveryTicks at debug.
+//
+// Prometheus metrics (Server.Metrics; served at /metrics on
+// Config.MetricsListen): tick phase durations, ticks by state, fallbacks by
+// reason, guard actions by joint and bound, tracking error, rejected
+// observations by code, rejected markers, controller connected. Recording
+// them allocates nothing.
 package server
