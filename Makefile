@@ -8,7 +8,7 @@ STATICCHECK   := honnef.co/go/tools/cmd/staticcheck@v0.8.2
 BENCHTIME     ?= 1s
 PKGS          := ./...
 
-.PHONY: all build test test-short vet fmt-check lint bench demo proto clean
+.PHONY: all build test test-race grpcurl-check bench-e2e vet fmt-check lint bench demo proto clean
 
 all: build
 
@@ -16,9 +16,24 @@ build:
 	$(GO) build $(PKGS)
 	$(GO) build -o bin/ ./client/cmd/... ./server/cmd/... 2>/dev/null || true
 
-## test: the README's test command; CI runs it through .ci/run.
+## test: the README's test command; CI runs it through .ci/run. It also runs
+## the server under the race detector and lets an outside gRPC client
+## (grpcurl, installed at a pinned version) look at a running daemon.
 test: fmt-check vet proto-check
 	$(GO) test -count=1 $(PKGS)
+	$(MAKE) test-race grpcurl-check
+
+## test-race: the server under the race detector.
+test-race:
+	$(GO) test -race -count=1 ./server/...
+
+## grpcurl-check: an outside client lists services by reflection and calls health and GetStatus (installs grpcurl v1.9.4; a few minutes the first time).
+grpcurl-check:
+	@GO=$(GO) sh server/grpcurl_check.sh
+
+## bench-e2e: the 60 s end-to-end loopback figure (observation sent → command received).
+bench-e2e:
+	TAUTLINED_BENCH_SECONDS=60 $(GO) test -run '^$$' -bench DriveLoopback100Hz -benchtime 1x ./server/
 
 vet:
 	$(GO) vet $(PKGS)
