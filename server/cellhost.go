@@ -146,7 +146,6 @@ func (h *cellHost) arm(cueName string) (*pb.CellStatus, error) {
 		return nil, status.Error(codes.FailedPrecondition, why)
 	}
 	e := h.eng
-	e.ticks, e.rejected, e.bounded, e.maxSolveUs = 0, 0, 0, 0
 	e.arm(a, fmt.Sprintf("operator armed cue %q", cueName))
 	e.event(pb.EventKind_EVENT_KIND_OPERATOR, 0, 0, "ArmCue "+cueName)
 	if h.controller != nil {

@@ -91,6 +91,14 @@ type engine struct {
 	commandState             pb.SessionState // the state the last command carried
 	fallbackRun              int
 	sessionTicks             uint64
+	// Session counters and the tracking error (see observedTrackingError).
+	fallbackTicks    uint64
+	coastEntries     uint32
+	lastBoundActions uint32
+	boundActions     uint64
+	trackErrM        float64
+	trackErrMarkers  int
+	refBuf           []float64 // the reference's marker positions, xyz per marker
 }
 
 // armedCue is a session: the armed cue, its planner and its capture.
@@ -130,6 +138,7 @@ func newEngine(cell *sim.Cell, cfg *Config, log *zap.Logger, onChange func()) (*
 		x:           make([]float64, d), xp: make([]float64, d),
 		xn: make([]float64, d), xq: make([]float64, d),
 		markerOffset: make([]float64, 3*len(cell.Markers)),
+		refBuf:       make([]float64, 3*len(cell.Markers)),
 		jointHist:    newJointHistory(nq), qCapture: make([]float64, nq),
 		state: pb.SessionState_SESSION_STATE_IDLE, reason: "daemon started", since: time.Now(),
 		pose: vec(), prev: vec(), prev2: vec(), wish: vec(), target: vec(),
@@ -170,6 +179,7 @@ func (e *engine) setState(to pb.SessionState, reason string) {
 		zap.String(fieldReason, reason))
 	e.event(pb.EventKind_EVENT_KIND_STATE_CHANGE, from, to, reason)
 	if to == pb.SessionState_SESSION_STATE_COAST {
+		e.coastEntries++
 		copy(e.coastCorr, e.corr)
 		e.coastTicks = 0
 		e.goodInRow = 0
@@ -229,7 +239,16 @@ func (e *engine) arm(a *armedCue, reason string) {
 	a.lc.cue.PositionTo(e.pose, a.lc.cue.StartS())
 	e.hasOrigin = false
 	e.badInRow, e.goodInRow = 0, 0
+	e.resetSessionCounters()
 	e.setState(pb.SessionState_SESSION_STATE_STANDBY, reason)
+}
+
+// resetSessionCounters zeroes the counters a CellStatus reports per
+// session.
+func (e *engine) resetSessionCounters() {
+	e.ticks, e.rejected, e.bounded, e.maxSolveUs = 0, 0, 0, 0
+	e.fallbackTicks, e.coastEntries, e.lastBoundActions, e.boundActions = 0, 0, 0, 0
+	e.trackErrM, e.trackErrMarkers = 0, 0
 }
 
 // canStart says why Start is refused, or "" if it may go.
@@ -310,4 +329,10 @@ func (e *engine) status(dst *pb.CellStatus, connected bool) {
 	dst.BoundedTicks = e.bounded
 	dst.LastSolveTimeUs = e.lastSolveUs
 	dst.MaxSolveTimeUs = e.maxSolveUs
+	dst.TrackingErrorM = e.trackErrM
+	dst.TrackingErrorMarkers = uint32(e.trackErrMarkers)
+	dst.FallbackTicks = e.fallbackTicks
+	dst.CoastEntries = e.coastEntries
+	dst.LastBoundActions = e.lastBoundActions
+	dst.BoundActions = e.boundActions
 }

@@ -110,7 +110,7 @@ func NewMetrics() *Metrics {
 	}, []string{"cell", "joint", "kind"})
 	m.trackingError = prometheus.NewHistogramVec(prometheus.HistogramOpts{
 		Name:    MetricTrackingError,
-		Help:    "RMS distance of the estimated tracked points from the cue's reference on live ticks, m.",
+		Help:    "RMS distance of the observed markers (gate-rejected ones left out) from the cue's reference at their capture time, per tracker frame taken on live and coast ticks, m.",
 		Buckets: trackingErrorBucketsM,
 	}, []string{"cell"})
 	m.rejected = prometheus.NewCounterVec(prometheus.CounterOpts{

@@ -142,6 +142,7 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 	// Estimator update, in every state, so the estimate has converged by
 	// the time the session goes live.
 	var estErr error
+	observed := false // the estimator took this tick's frame
 	if te.ok() && e.est.Initialised() && obs.GetCaptureTimeS()-e.est.TimeS() > maxEstimatorGapTicks*e.tickS {
 		// Predicting across a long gap would cost one model step per tick
 		// of it; start the filter afresh instead.
@@ -158,6 +159,7 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 		err := e.est.Observe(obs.GetCaptureTimeS(), e.qCapture, e.markers, &e.estRep)
 		switch {
 		case err == nil:
+			observed = true
 			e.haveCapture, e.lastCapture = true, obs.GetCaptureTimeS()
 			e.metrics.RejectedMarkers(len(e.estRep.Rejected))
 		case errors.Is(err, mpc.ErrTimeOrder):
@@ -173,6 +175,17 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 	if e.armed != nil && !e.hasOrigin &&
 		(e.state == pb.SessionState_SESSION_STATE_LIVE || e.state == pb.SessionState_SESSION_STATE_COAST) {
 		e.origin, e.hasOrigin = t, true
+	}
+	if observed && e.hasOrigin &&
+		(e.state == pb.SessionState_SESSION_STATE_LIVE || e.state == pb.SessionState_SESSION_STATE_COAST) {
+		before := e.trackErrMarkers
+		e.trackErrMarkers = 0
+		e.observedTrackingError(obs.GetCaptureTimeS())
+		if e.trackErrMarkers > 0 {
+			e.metrics.TrackingError(e.trackErrM)
+		} else {
+			e.trackErrMarkers = before
+		}
 	}
 
 	mode := e.state
@@ -208,9 +221,7 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 		default:
 			err = e.plan(t)
 			planned = err == nil
-			if planned {
-				e.metrics.TrackingErrorFrom(a.lc.ref, e.playT(t), e.x)
-			} else {
+			if !planned {
 				e.metrics.Fallback(FallbackPlannerError)
 			}
 		}
@@ -232,8 +243,12 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 		} else {
 			e.badInRow++
 		}
+		if !planned && !(a.planner == nil && te.ok()) {
+			e.fallbackTicks++
+		}
 	case pb.SessionState_SESSION_STATE_COAST:
 		e.nominalTo(e.qbar, tNext)
+		e.fallbackTicks++
 		e.coastTicks++
 		f := e.coastFade(e.coastTicks)
 		for i := range e.wish {
@@ -258,6 +273,8 @@ func (e *engine) tick(obs *pb.Observation, recvAt time.Time, s *commandSlot) {
 		e.guard.Apply(e.target, e.wish, e.prev, e.prev2, &e.grep)
 	}
 	e.fillBounds(s)
+	e.lastBoundActions = uint32(len(s.bptrs))
+	e.boundActions += uint64(len(s.bptrs))
 	e.prev2, e.prev, e.target = e.prev, e.target, e.prev2
 	historyBroken := e.grep.Any&mpc.BoundHistory != 0
 	if e.grep.Any != 0 {

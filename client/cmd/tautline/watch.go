@@ -24,14 +24,17 @@ func init() {
 
 const watchHelp = `
 Follows a cell's status on a running daemon (the WatchStatus stream) and shows
-one line: the state and why, the cue and its time, ticks answered, the solve
-time of the last tick and the largest so far, how many ticks the guard
-enforced a bound on (and how many in the last update), and the rejected ticks
-the daemon answered with a fallback (with how many in a row now). On a
-terminal the line is rewritten in place; otherwise each update is a line.
-
-The daemon's status carries no figure tracking error; 'tautline sim' and
-'tautline report' measure it.
+one line: the state and why, the cue and its time, ticks answered, the
+tracking error (RMS distance of the markers in the latest tracker frame from
+the cue's reference at the frame's capture time, in mm, with the number of
+markers it covers; "-" before the cue has started or while no marker has been
+seen), the solve time of the last tick and the largest so far, how many ticks
+the guard enforced a bound on (and how many in the last update) and how many
+bounds it enforced (in all and on the last tick), the rejected observations
+(with how many in a row now), the ticks answered by a fallback (rejected
+input, estimator or planner failure, stale feedback, coast) and how many times
+the session entered coast. On a terminal the line is rewritten in place;
+otherwise each update is a line.
 
 Ends when the daemon ends the stream, after -count updates, or on Ctrl-C.`
 
@@ -121,10 +124,15 @@ func statusLine(st *pb.CellStatus, newBounded uint64) string {
 	if !st.GetControllerConnected() {
 		ctl = "no controller"
 	}
-	return fmt.Sprintf("%s %s%s (%s) | %s | %s | ticks %d | solve %.3f ms (max %.3f) | bounds %d (+%d) | fallbacks %d (%d in a row)",
-		st.GetCellName(), stateWord(st.GetState()), since, st.GetStateReason(), cue, ctl, st.GetTicks(),
+	track := "tracking error -"
+	if n := st.GetTrackingErrorMarkers(); n > 0 {
+		track = fmt.Sprintf("tracking error %.2f mm (%d markers)", st.GetTrackingErrorM()*1e3, n)
+	}
+	return fmt.Sprintf("%s %s%s (%s) | %s | %s | ticks %d | %s | solve %.3f ms (max %.3f) | bounded ticks %d (+%d), bound actions %d (last tick %d) | rejected %d (%d in a row) | fallbacks %d | coast entries %d",
+		st.GetCellName(), stateWord(st.GetState()), since, st.GetStateReason(), cue, ctl, st.GetTicks(), track,
 		float64(st.GetLastSolveTimeUs())/1e3, float64(st.GetMaxSolveTimeUs())/1e3,
-		st.GetBoundedTicks(), newBounded, st.GetRejectedTicks(), st.GetRejectedInRow())
+		st.GetBoundedTicks(), newBounded, st.GetBoundActions(), st.GetLastBoundActions(),
+		st.GetRejectedTicks(), st.GetRejectedInRow(), st.GetFallbackTicks(), st.GetCoastEntries())
 }
 
 func isTerminal(w io.Writer) bool {

@@ -21,9 +21,20 @@ func TestWatchShowsTheCellsStatus(t *testing.T) {
 	if code != 0 {
 		t.Fatalf("exit %d\n%s\n%s", code, out, errOut)
 	}
-	for _, want := range []string{"demo-jellyfish idle", "no cue", "no controller", "ticks 0", "bounds 0 (+0)", "fallbacks 0 (0 in a row)"} {
+	for _, want := range []string{"demo-jellyfish idle", "no cue", "no controller", "ticks 0", "tracking error -", "bounded ticks 0 (+0)", "bound actions 0 (last tick 0)", "rejected 0 (0 in a row)", "fallbacks 0", "coast entries 0"} {
 		if !strings.Contains(out, want) {
 			t.Errorf("status line lacks %q: %q", want, out)
+		}
+	}
+	// The status line of a live cell with a tracking error, from a status
+	// made here: the daemon-run tests above cannot time one exactly.
+	line := statusLine(&pb.CellStatus{CellName: "c", State: pb.SessionState_SESSION_STATE_COAST,
+		TrackingErrorM: 0.00234, TrackingErrorMarkers: 5, FallbackTicks: 17, CoastEntries: 2,
+		BoundedTicks: 9, BoundActions: 12, LastBoundActions: 3, RejectedTicks: 4, RejectedInRow: 1}, 2)
+	for _, want := range []string{"c coast", "tracking error 2.34 mm (5 markers)", "bounded ticks 9 (+2), bound actions 12 (last tick 3)",
+		"rejected 4 (1 in a row)", "fallbacks 17", "coast entries 2"} {
+		if !strings.Contains(line, want) {
+			t.Errorf("status line lacks %q: %q", want, line)
 		}
 	}
 	if strings.Count(out, "\n") != 1 || strings.Contains(out, "\r") {
@@ -91,6 +102,12 @@ func TestWatchALiveRun(t *testing.T) {
 	}
 	if !regexp.MustCompile(`live \d+s \([^)]+\)`).MatchString(out) {
 		t.Errorf("status line gives no reason for the state: %q", out)
+	}
+	if !regexp.MustCompile(`\| tracking error (-|\d+\.\d\d mm \(\d+ markers\)) \|`).MatchString(out) {
+		t.Errorf("status line shows no tracking error: %q", out)
+	}
+	if !regexp.MustCompile(`\| fallbacks \d+ \| coast entries \d+$`).MatchString(strings.TrimSpace(out)) {
+		t.Errorf("status line shows no fallbacks and coast entries: %q", out)
 	}
 	if err := <-done; err != nil {
 		t.Fatal(err)

@@ -621,9 +621,31 @@ type CellStatus struct {
 	LastSolveTimeUs uint32 `protobuf:"varint,15,opt,name=last_solve_time_us,json=lastSolveTimeUs,proto3" json:"last_solve_time_us,omitempty"`
 	MaxSolveTimeUs  uint32 `protobuf:"varint,16,opt,name=max_solve_time_us,json=maxSolveTimeUs,proto3" json:"max_solve_time_us,omitempty"`
 	// Path of the capture file being written; empty if none.
-	CapturePath   string `protobuf:"bytes,17,opt,name=capture_path,json=capturePath,proto3" json:"capture_path,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	CapturePath string `protobuf:"bytes,17,opt,name=capture_path,json=capturePath,proto3" json:"capture_path,omitempty"`
+	// The latest tracking error: the root mean square, over the markers seen
+	// in the latest tracker frame the estimator took (gate-rejected sightings
+	// left out), of the distance between each observed marker (tracker frame
+	// mapped to the world by the cell file's transform) and the cue's
+	// reference for that marker at the frame's capture time, m. Measured
+	// from the markers themselves, not from the estimate. Zero when
+	// tracking_error_markers is zero.
+	TrackingErrorM float64 `protobuf:"fixed64,18,opt,name=tracking_error_m,json=trackingErrorM,proto3" json:"tracking_error_m,omitempty"`
+	// Markers that tracking_error_m averages over; zero when no frame has
+	// been compared with the reference yet in this session (the cue has not
+	// started, or no marker was seen since).
+	TrackingErrorMarkers uint32 `protobuf:"varint,19,opt,name=tracking_error_markers,json=trackingErrorMarkers,proto3" json:"tracking_error_markers,omitempty"`
+	// Ticks in this session answered by a fallback instead of a fresh
+	// planner correction: live ticks with rejected input, an estimator
+	// failure, stale feedback or a planner failure, and every coast tick.
+	FallbackTicks uint64 `protobuf:"varint,20,opt,name=fallback_ticks,json=fallbackTicks,proto3" json:"fallback_ticks,omitempty"`
+	// Times this session entered coast.
+	CoastEntries uint32 `protobuf:"varint,21,opt,name=coast_entries,json=coastEntries,proto3" json:"coast_entries,omitempty"`
+	// Bounds the guard enforced on the last tick's target (the length of
+	// its Command.bounds_acted), and in all of this session.
+	LastBoundActions uint32 `protobuf:"varint,22,opt,name=last_bound_actions,json=lastBoundActions,proto3" json:"last_bound_actions,omitempty"`
+	BoundActions     uint64 `protobuf:"varint,23,opt,name=bound_actions,json=boundActions,proto3" json:"bound_actions,omitempty"`
+	unknownFields    protoimpl.UnknownFields
+	sizeCache        protoimpl.SizeCache
 }
 
 func (x *CellStatus) Reset() {
@@ -775,6 +797,48 @@ func (x *CellStatus) GetCapturePath() string {
 	return ""
 }
 
+func (x *CellStatus) GetTrackingErrorM() float64 {
+	if x != nil {
+		return x.TrackingErrorM
+	}
+	return 0
+}
+
+func (x *CellStatus) GetTrackingErrorMarkers() uint32 {
+	if x != nil {
+		return x.TrackingErrorMarkers
+	}
+	return 0
+}
+
+func (x *CellStatus) GetFallbackTicks() uint64 {
+	if x != nil {
+		return x.FallbackTicks
+	}
+	return 0
+}
+
+func (x *CellStatus) GetCoastEntries() uint32 {
+	if x != nil {
+		return x.CoastEntries
+	}
+	return 0
+}
+
+func (x *CellStatus) GetLastBoundActions() uint32 {
+	if x != nil {
+		return x.LastBoundActions
+	}
+	return 0
+}
+
+func (x *CellStatus) GetBoundActions() uint64 {
+	if x != nil {
+		return x.BoundActions
+	}
+	return 0
+}
+
 var File_tautline_v1_cell_control_proto protoreflect.FileDescriptor
 
 const file_tautline_v1_cell_control_proto_rawDesc = "" +
@@ -815,7 +879,7 @@ const file_tautline_v1_cell_control_proto_rawDesc = "" +
 	"\tcell_name\x18\x01 \x01(\tR\bcellName\"W\n" +
 	"\x12WatchStatusRequest\x12\x1b\n" +
 	"\tcell_name\x18\x01 \x01(\tR\bcellName\x12$\n" +
-	"\x0emin_interval_s\x18\x02 \x01(\x01R\fminIntervalS\"\x86\x05\n" +
+	"\x0emin_interval_s\x18\x02 \x01(\x01R\fminIntervalS\"\x85\a\n" +
 	"\n" +
 	"CellStatus\x12\x1b\n" +
 	"\tcell_name\x18\x01 \x01(\tR\bcellName\x12/\n" +
@@ -837,7 +901,13 @@ const file_tautline_v1_cell_control_proto_rawDesc = "" +
 	"\rbounded_ticks\x18\x0e \x01(\x04R\fboundedTicks\x12+\n" +
 	"\x12last_solve_time_us\x18\x0f \x01(\rR\x0flastSolveTimeUs\x12)\n" +
 	"\x11max_solve_time_us\x18\x10 \x01(\rR\x0emaxSolveTimeUs\x12!\n" +
-	"\fcapture_path\x18\x11 \x01(\tR\vcapturePath2\xdf\x04\n" +
+	"\fcapture_path\x18\x11 \x01(\tR\vcapturePath\x12(\n" +
+	"\x10tracking_error_m\x18\x12 \x01(\x01R\x0etrackingErrorM\x124\n" +
+	"\x16tracking_error_markers\x18\x13 \x01(\rR\x14trackingErrorMarkers\x12%\n" +
+	"\x0efallback_ticks\x18\x14 \x01(\x04R\rfallbackTicks\x12#\n" +
+	"\rcoast_entries\x18\x15 \x01(\rR\fcoastEntries\x12,\n" +
+	"\x12last_bound_actions\x18\x16 \x01(\rR\x10lastBoundActions\x12#\n" +
+	"\rbound_actions\x18\x17 \x01(\x04R\fboundActions2\xdf\x04\n" +
 	"\vCellControl\x12;\n" +
 	"\x05Drive\x12\x18.tautline.v1.Observation\x1a\x14.tautline.v1.Command(\x010\x01\x12<\n" +
 	"\aLoadCue\x12\x1b.tautline.v1.LoadCueRequest\x1a\x14.tautline.v1.CueInfo\x12G\n" +
