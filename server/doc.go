@@ -48,11 +48,13 @@
 //
 // # The cue clock
 //
-// cue_time_s and capture_time_s are times on the controller's clock, which
-// must advance within a stream. The cue starts at the first observation after
+// An observation's cue_time_s and capture_time_s are times on the
+// controller's clock, whose zero is the controller's own; cue_time_s must
+// increase within a stream. The cue starts at the first observation after
 // Start: that observation's cue_time_s becomes the cue's first row, and the
 // cue then plays with the controller's clock. A command's targets are for
-// cue_time_s plus one tick. A controller that reconnects with its clock
+// cue_time_s plus one tick, on the same clock (CellStatus.cue_time_s, by
+// contrast, is the position in the cue). A controller that reconnects with its clock
 // running on resumes the cue where the clock now is; one whose clock
 // restarted resumes it where it stopped.
 //
@@ -72,12 +74,15 @@
 //
 // # Bad input
 //
-// An observation with a wrong size, an unknown or repeated marker, a NaN,
-// infinite or absurd value, a time that goes backwards or a capture after
-// its cue time, a skipped tick_seq, markers older than Config.MaxLatencyS,
-// another cell's name, or no armed cue is answered with a command carrying
-// a TickError that names the field (e.g. "markers[3].marker_id") and says
-// what to fix. The estimator and the planner never see it: the target is
+// An observation with a wrong size (WRONG_SIZE), an unknown marker
+// (UNKNOWN_MARKER) or one repeated (DUPLICATE_MARKER), a NaN or infinite
+// value (NOT_FINITE) or an absurd one (OUT_OF_RANGE: a time beyond ±1e10 s,
+// a joint or coordinate beyond ±1e4), a time that goes backwards or a
+// capture after its cue time (TIME_ORDER), a skipped tick_seq (TICK_SEQ),
+// markers older than Config.MaxLatencyS (LATE), another cell's name
+// (UNKNOWN_CELL), or no armed cue (NO_CUE_ARMED) is answered with a command
+// carrying a TickError with that code, naming the field (e.g.
+// "markers[3].marker_id") and saying what to fix. The estimator and the planner never see it: the target is
 // the state's fallback (live: nominal plus the correction held) through the
 // guard. tick_seq resynchronises on the bad tick, so one glitch costs one
 // tick. The observation and its command are recorded like any other.
@@ -121,6 +126,15 @@
 // reason. State changes and calls at info; slow ticks (Config.SlowTickS),
 // slow calls, fallbacks and reseeds at warn; one tick in
 // Config.DebugEveryTicks at debug.
+//
+// CellStatus (GetStatus, WatchStatus) carries, besides the state and the
+// cue, the session's counters (ticks, rejected observations, fallback
+// ticks, coast entries, bounded ticks and bound actions) and the tracking
+// error: the RMS distance of the markers of the latest tracker frame the
+// estimator took (gate-rejected sightings left out), mapped to the world,
+// from the cue's reference at the frame's capture time. It is measured on
+// the markers rather than on the estimate, which would need the
+// estimator's per-marker offsets added to be comparable.
 //
 // Prometheus metrics (Server.Metrics; served at /metrics on
 // Config.MetricsListen): tick phase durations, ticks by state, fallbacks by

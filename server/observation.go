@@ -45,6 +45,8 @@ func (e *engine) validate(obs *pb.Observation) tickError {
 		wrongSize = pb.TickErrorCode_TICK_ERROR_CODE_WRONG_SIZE
 		notFinite = pb.TickErrorCode_TICK_ERROR_CODE_NOT_FINITE
 		unknown   = pb.TickErrorCode_TICK_ERROR_CODE_UNKNOWN_MARKER
+		duplicate = pb.TickErrorCode_TICK_ERROR_CODE_DUPLICATE_MARKER
+		tooLarge  = pb.TickErrorCode_TICK_ERROR_CODE_OUT_OF_RANGE
 		timeOrder = pb.TickErrorCode_TICK_ERROR_CODE_TIME_ORDER
 	)
 	if n := obs.GetCellName(); n != "" && n != e.cell.Name {
@@ -57,16 +59,16 @@ func (e *engine) validate(obs *pb.Observation) tickError {
 	}
 	t, tc := obs.GetCueTimeS(), obs.GetCaptureTimeS()
 	if !finite(t) {
-		return badTick(notFinite, "cue_time_s", "cue_time_s is %v; send the cue clock's time in seconds", t)
+		return badTick(notFinite, "cue_time_s", "cue_time_s is %v; send the controller clock's time in seconds", t)
 	}
 	if !finite(tc) {
-		return badTick(notFinite, "capture_time_s", "capture_time_s is %v; send the tracker frame's time on the cue clock in seconds", tc)
+		return badTick(notFinite, "capture_time_s", "capture_time_s is %v; send the tracker frame's time on the controller clock in seconds", tc)
 	}
 	if math.Abs(t) > maxClockS {
-		return badTick(notFinite, "cue_time_s", "cue_time_s %v is beyond ±%g s, where a float64 cannot tell ticks apart; use a clock that starts near zero", t, maxClockS)
+		return badTick(tooLarge, "cue_time_s", "cue_time_s %v is beyond ±%g s, where a float64 cannot tell ticks apart; use a clock that starts near zero", t, maxClockS)
 	}
 	if math.Abs(tc) > maxClockS {
-		return badTick(notFinite, "capture_time_s", "capture_time_s %v is beyond ±%g s, where a float64 cannot tell ticks apart; use a clock that starts near zero", tc, maxClockS)
+		return badTick(tooLarge, "capture_time_s", "capture_time_s %v is beyond ±%g s, where a float64 cannot tell ticks apart; use a clock that starts near zero", tc, maxClockS)
 	}
 	q := obs.GetMeasuredJointPositions()
 	if len(q) != e.nq {
@@ -74,9 +76,13 @@ func (e *engine) validate(obs *pb.Observation) tickError {
 			"%d measured joint positions; cell %q has %d joints (%s ...)", len(q), e.cell.Name, e.nq, e.cell.JointNames()[0])
 	}
 	for i, v := range q {
-		if !finite(v) || math.Abs(v) > maxMagnitude {
+		if !finite(v) {
 			return badTick(notFinite, fmt.Sprintf("measured_joint_positions[%d]", i),
 				"measured position of joint %s is %v, not a usable position", e.cell.JointNames()[i], v)
+		}
+		if math.Abs(v) > maxMagnitude {
+			return badTick(tooLarge, fmt.Sprintf("measured_joint_positions[%d]", i),
+				"measured position of joint %s is %v, beyond ±%g (rad or m): not a measurement", e.cell.JointNames()[i], v, maxMagnitude)
 		}
 	}
 	ms := obs.GetMarkers()
@@ -92,15 +98,19 @@ func (e *engine) validate(obs *pb.Observation) tickError {
 				"marker %q is not a marker of cell %q", m.GetMarkerId(), e.cell.Name)
 		}
 		if e.markerSeen[k] {
-			return badTick(unknown, fmt.Sprintf("markers[%d].marker_id", i),
-				"marker %q appears twice in one observation", m.GetMarkerId())
+			return badTick(duplicate, fmt.Sprintf("markers[%d].marker_id", i),
+				"marker %q appears twice in one observation; send each marker once", m.GetMarkerId())
 		}
 		e.markerSeen[k] = true
 		p := [3]float64{m.GetXM(), m.GetYM(), m.GetZM()}
 		for a, v := range p {
-			if !finite(v) || math.Abs(v) > maxMagnitude {
+			if !finite(v) {
 				return badTick(notFinite, fmt.Sprintf("markers[%d].%s", i, [3]string{"x_m", "y_m", "z_m"}[a]),
 					"marker %q coordinate is %v m, not a usable position", m.GetMarkerId(), v)
+			}
+			if math.Abs(v) > maxMagnitude {
+				return badTick(tooLarge, fmt.Sprintf("markers[%d].%s", i, [3]string{"x_m", "y_m", "z_m"}[a]),
+					"marker %q coordinate is %v m, beyond ±%g m: not a measurement", m.GetMarkerId(), v, maxMagnitude)
 			}
 		}
 		e.markers = append(e.markers, mpc.MarkerObs{Marker: k, PosTrackerM: p})

@@ -5,6 +5,7 @@ import (
 	"testing"
 	"time"
 
+	"tautline/mpc"
 	pb "tautline/proto/tautline/v1"
 )
 
@@ -109,5 +110,52 @@ func TestStatusCarriesTrackingErrorAndFallbacks(t *testing.T) {
 	}
 	if got := h.status().FallbackTicks; got != fb+5 {
 		t.Errorf("5 coast ticks: fallback ticks %d, want %d", got, fb+5)
+	}
+}
+
+// The guard's bound bits map onto the Command's bound kinds: a target
+// beyond a position limit is POSITION_LOWER or _UPPER by the direction of
+// the adjustment (the viability bit the guard sets with it is not listed
+// again), a viability bound alone is VIABILITY, and velocity and
+// acceleration bounds are listed as well.
+func TestBoundKindsOfTheGuardsBits(t *testing.T) {
+	h, _, slot := newLiveHost(t)
+	e := h.eng
+	clear(e.grep.Acted)
+	copy(e.wish, e.prev)
+	copy(e.target, e.prev)
+	e.grep.Acted[0] = mpc.BoundPosition | mpc.BoundViability
+	e.target[0] = e.wish[0] + 0.1 // raised: the lower limit
+	e.grep.Acted[1] = mpc.BoundPosition | mpc.BoundViability | mpc.BoundVelocity
+	e.target[1] = e.wish[1] - 0.1 // lowered: the upper limit
+	e.grep.Acted[2] = mpc.BoundViability
+	e.target[2] = e.wish[2] - 0.01
+	e.grep.Acted[3] = mpc.BoundAccel
+	e.grep.Any = mpc.BoundPosition | mpc.BoundViability | mpc.BoundVelocity | mpc.BoundAccel
+	e.fillBounds(slot)
+	type jk struct {
+		j uint32
+		k pb.BoundKind
+	}
+	want := []jk{
+		{0, pb.BoundKind_BOUND_KIND_POSITION_LOWER},
+		{1, pb.BoundKind_BOUND_KIND_POSITION_UPPER},
+		{1, pb.BoundKind_BOUND_KIND_VELOCITY},
+		{2, pb.BoundKind_BOUND_KIND_VIABILITY},
+		{3, pb.BoundKind_BOUND_KIND_ACCELERATION},
+	}
+	got := slot.cmd.BoundsActed
+	if len(got) != len(want) {
+		t.Fatalf("bounds acted %v, want %v", got, want)
+	}
+	for i, w := range want {
+		if got[i].JointIndex != w.j || got[i].Kind != w.k {
+			t.Errorf("bound %d: joint %d %v, want joint %d %v", i, got[i].JointIndex, got[i].Kind, w.j, w.k)
+		}
+	}
+	// 1e-12: the rounding of (wish − 0.01) − wish for a wish of a few rad is
+	// about 1e-16.
+	if a := got[3].Adjustment; math.Abs(a+0.01) > 1e-12 {
+		t.Errorf("viability adjustment %v, want -0.01 (target minus wish)", a)
 	}
 }

@@ -420,12 +420,17 @@ func (e *engine) fillBounds(s *commandSlot) {
 		if k == 0 {
 			continue
 		}
-		if k&(mpc.BoundPosition|mpc.BoundViability) != 0 {
+		switch {
+		case k&mpc.BoundPosition != 0:
+			// Beyond a position limit; the guard's viability bound, set
+			// with it, is the same adjustment and is not listed twice.
 			if e.target[j] > e.wish[j] {
 				add(j, pb.BoundKind_BOUND_KIND_POSITION_LOWER)
 			} else {
 				add(j, pb.BoundKind_BOUND_KIND_POSITION_UPPER)
 			}
+		case k&mpc.BoundViability != 0:
+			add(j, pb.BoundKind_BOUND_KIND_VIABILITY)
 		}
 		if k&mpc.BoundVelocity != 0 {
 			add(j, pb.BoundKind_BOUND_KIND_VELOCITY)

@@ -111,6 +111,11 @@ const (
 	BoundKind_BOUND_KIND_VELOCITY BoundKind = 3
 	// The change of step was cut to the acceleration limit.
 	BoundKind_BOUND_KIND_ACCELERATION BoundKind = 4
+	// The target, though within the position limits, was pulled back so that
+	// the joint can still stop before a position limit at its acceleration
+	// limit (the guard's viability bound). A target beyond a position limit
+	// is reported as POSITION_LOWER or POSITION_UPPER instead.
+	BoundKind_BOUND_KIND_VIABILITY BoundKind = 5
 )
 
 // Enum value maps for BoundKind.
@@ -121,6 +126,7 @@ var (
 		2: "BOUND_KIND_POSITION_UPPER",
 		3: "BOUND_KIND_VELOCITY",
 		4: "BOUND_KIND_ACCELERATION",
+		5: "BOUND_KIND_VIABILITY",
 	}
 	BoundKind_value = map[string]int32{
 		"BOUND_KIND_UNSPECIFIED":    0,
@@ -128,6 +134,7 @@ var (
 		"BOUND_KIND_POSITION_UPPER": 2,
 		"BOUND_KIND_VELOCITY":       3,
 		"BOUND_KIND_ACCELERATION":   4,
+		"BOUND_KIND_VIABILITY":      5,
 	}
 )
 
@@ -167,7 +174,7 @@ const (
 	TickErrorCode_TICK_ERROR_CODE_WRONG_SIZE TickErrorCode = 1
 	// A value is NaN or infinite.
 	TickErrorCode_TICK_ERROR_CODE_NOT_FINITE TickErrorCode = 2
-	// A marker id the cell does not know.
+	// A marker id the cell does not know (an empty id included).
 	TickErrorCode_TICK_ERROR_CODE_UNKNOWN_MARKER TickErrorCode = 3
 	// cue_time_s went backwards, or capture_time_s is after cue_time_s.
 	TickErrorCode_TICK_ERROR_CODE_TIME_ORDER TickErrorCode = 4
@@ -181,33 +188,43 @@ const (
 	TickErrorCode_TICK_ERROR_CODE_PLANNER TickErrorCode = 8
 	// The observation arrived too late to be used.
 	TickErrorCode_TICK_ERROR_CODE_LATE TickErrorCode = 9
+	// A value is finite but too large to be a measurement: a time beyond
+	// ±1e10 s, a joint position beyond ±1e4 rad or m, a marker coordinate
+	// beyond ±1e4 m.
+	TickErrorCode_TICK_ERROR_CODE_OUT_OF_RANGE TickErrorCode = 10
+	// A marker id appears more than once in one observation.
+	TickErrorCode_TICK_ERROR_CODE_DUPLICATE_MARKER TickErrorCode = 11
 )
 
 // Enum value maps for TickErrorCode.
 var (
 	TickErrorCode_name = map[int32]string{
-		0: "TICK_ERROR_CODE_UNSPECIFIED",
-		1: "TICK_ERROR_CODE_WRONG_SIZE",
-		2: "TICK_ERROR_CODE_NOT_FINITE",
-		3: "TICK_ERROR_CODE_UNKNOWN_MARKER",
-		4: "TICK_ERROR_CODE_TIME_ORDER",
-		5: "TICK_ERROR_CODE_TICK_SEQ",
-		6: "TICK_ERROR_CODE_NO_CUE_ARMED",
-		7: "TICK_ERROR_CODE_UNKNOWN_CELL",
-		8: "TICK_ERROR_CODE_PLANNER",
-		9: "TICK_ERROR_CODE_LATE",
+		0:  "TICK_ERROR_CODE_UNSPECIFIED",
+		1:  "TICK_ERROR_CODE_WRONG_SIZE",
+		2:  "TICK_ERROR_CODE_NOT_FINITE",
+		3:  "TICK_ERROR_CODE_UNKNOWN_MARKER",
+		4:  "TICK_ERROR_CODE_TIME_ORDER",
+		5:  "TICK_ERROR_CODE_TICK_SEQ",
+		6:  "TICK_ERROR_CODE_NO_CUE_ARMED",
+		7:  "TICK_ERROR_CODE_UNKNOWN_CELL",
+		8:  "TICK_ERROR_CODE_PLANNER",
+		9:  "TICK_ERROR_CODE_LATE",
+		10: "TICK_ERROR_CODE_OUT_OF_RANGE",
+		11: "TICK_ERROR_CODE_DUPLICATE_MARKER",
 	}
 	TickErrorCode_value = map[string]int32{
-		"TICK_ERROR_CODE_UNSPECIFIED":    0,
-		"TICK_ERROR_CODE_WRONG_SIZE":     1,
-		"TICK_ERROR_CODE_NOT_FINITE":     2,
-		"TICK_ERROR_CODE_UNKNOWN_MARKER": 3,
-		"TICK_ERROR_CODE_TIME_ORDER":     4,
-		"TICK_ERROR_CODE_TICK_SEQ":       5,
-		"TICK_ERROR_CODE_NO_CUE_ARMED":   6,
-		"TICK_ERROR_CODE_UNKNOWN_CELL":   7,
-		"TICK_ERROR_CODE_PLANNER":        8,
-		"TICK_ERROR_CODE_LATE":           9,
+		"TICK_ERROR_CODE_UNSPECIFIED":      0,
+		"TICK_ERROR_CODE_WRONG_SIZE":       1,
+		"TICK_ERROR_CODE_NOT_FINITE":       2,
+		"TICK_ERROR_CODE_UNKNOWN_MARKER":   3,
+		"TICK_ERROR_CODE_TIME_ORDER":       4,
+		"TICK_ERROR_CODE_TICK_SEQ":         5,
+		"TICK_ERROR_CODE_NO_CUE_ARMED":     6,
+		"TICK_ERROR_CODE_UNKNOWN_CELL":     7,
+		"TICK_ERROR_CODE_PLANNER":          8,
+		"TICK_ERROR_CODE_LATE":             9,
+		"TICK_ERROR_CODE_OUT_OF_RANGE":     10,
+		"TICK_ERROR_CODE_DUPLICATE_MARKER": 11,
 	}
 )
 
@@ -320,11 +337,14 @@ type Observation struct {
 	// The controller's tick counter: one more than the previous observation's
 	// on the same stream.
 	TickSeq uint64 `protobuf:"varint,2,opt,name=tick_seq,json=tickSeq,proto3" json:"tick_seq,omitempty"`
-	// Time on the cue's clock at which measured_joint_positions were sampled,
-	// s. Never decreases within a stream.
+	// Time on the controller's clock at which measured_joint_positions were
+	// sampled, s. Increases from one observation to the next within a
+	// stream. The clock is the controller's own, with any zero: the cue
+	// starts at the first observation after Start (that observation's
+	// cue_time_s is the cue's first row) and then plays with this clock.
 	CueTimeS float64 `protobuf:"fixed64,3,opt,name=cue_time_s,json=cueTimeS,proto3" json:"cue_time_s,omitempty"`
-	// Time on the cue's clock at which the tracker captured the markers, s.
-	// cue_time_s - capture_time_s is the tracker latency (>= 0).
+	// Time on the controller's clock at which the tracker captured the
+	// markers, s. cue_time_s - capture_time_s is the tracker latency (>= 0).
 	CaptureTimeS float64 `protobuf:"fixed64,4,opt,name=capture_time_s,json=captureTimeS,proto3" json:"capture_time_s,omitempty"`
 	// Measured joint positions, rad or m, one per joint in cell joint order.
 	MeasuredJointPositions []float64 `protobuf:"fixed64,5,rep,packed,name=measured_joint_positions,json=measuredJointPositions,proto3" json:"measured_joint_positions,omitempty"`
@@ -538,7 +558,8 @@ func (x *TickError) GetMessage() string {
 // JointTargets is one tick's joint targets.
 type JointTargets struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
-	// Time on the cue's clock at which the targets apply, s.
+	// Time on the controller's clock (the clock of Observation.cue_time_s) at
+	// which the targets apply, s: one tick after the observation's.
 	CueTimeS float64 `protobuf:"fixed64,1,opt,name=cue_time_s,json=cueTimeS,proto3" json:"cue_time_s,omitempty"`
 	// Joint position targets, rad or m, in cell joint order.
 	Positions     []float64 `protobuf:"fixed64,2,rep,packed,name=positions,proto3" json:"positions,omitempty"`
@@ -741,13 +762,14 @@ const file_tautline_v1_tick_proto_rawDesc = "" +
 	"\x12SESSION_STATE_LIVE\x10\x03\x12\x17\n" +
 	"\x13SESSION_STATE_COAST\x10\x04\x12\x16\n" +
 	"\x12SESSION_STATE_HOLD\x10\x05\x12\x17\n" +
-	"\x13SESSION_STATE_FAULT\x10\x06*\x9b\x01\n" +
+	"\x13SESSION_STATE_FAULT\x10\x06*\xb5\x01\n" +
 	"\tBoundKind\x12\x1a\n" +
 	"\x16BOUND_KIND_UNSPECIFIED\x10\x00\x12\x1d\n" +
 	"\x19BOUND_KIND_POSITION_LOWER\x10\x01\x12\x1d\n" +
 	"\x19BOUND_KIND_POSITION_UPPER\x10\x02\x12\x17\n" +
 	"\x13BOUND_KIND_VELOCITY\x10\x03\x12\x1b\n" +
-	"\x17BOUND_KIND_ACCELERATION\x10\x04*\xcd\x02\n" +
+	"\x17BOUND_KIND_ACCELERATION\x10\x04\x12\x18\n" +
+	"\x14BOUND_KIND_VIABILITY\x10\x05*\x95\x03\n" +
 	"\rTickErrorCode\x12\x1f\n" +
 	"\x1bTICK_ERROR_CODE_UNSPECIFIED\x10\x00\x12\x1e\n" +
 	"\x1aTICK_ERROR_CODE_WRONG_SIZE\x10\x01\x12\x1e\n" +
@@ -758,7 +780,10 @@ const file_tautline_v1_tick_proto_rawDesc = "" +
 	"\x1cTICK_ERROR_CODE_NO_CUE_ARMED\x10\x06\x12 \n" +
 	"\x1cTICK_ERROR_CODE_UNKNOWN_CELL\x10\a\x12\x1b\n" +
 	"\x17TICK_ERROR_CODE_PLANNER\x10\b\x12\x18\n" +
-	"\x14TICK_ERROR_CODE_LATE\x10\tB'Z%tautline/proto/tautline/v1;tautlinev1b\x06proto3"
+	"\x14TICK_ERROR_CODE_LATE\x10\t\x12 \n" +
+	"\x1cTICK_ERROR_CODE_OUT_OF_RANGE\x10\n" +
+	"\x12$\n" +
+	" TICK_ERROR_CODE_DUPLICATE_MARKER\x10\vB'Z%tautline/proto/tautline/v1;tautlinev1b\x06proto3"
 
 var (
 	file_tautline_v1_tick_proto_rawDescOnce sync.Once
