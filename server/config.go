@@ -97,11 +97,27 @@ type Config struct {
 	ShutdownGraceS float64 `json:"shutdown_grace_s"`
 
 	// TLSCertFile and TLSKeyFile are the server's certificate and key
-	// (PEM); TLSClientCAFile the CA that client certificates must chain to.
-	// All three or none; required for a non-loopback Listen.
+	// (PEM), both or neither; TLSClientCAFile the CA that client
+	// certificates must chain to (mutual TLS, with ControllerIdentities).
+	// A non-loopback Listen needs TLS unless InsecureListen is set (see
+	// CheckSecurityConfig).
 	TLSCertFile     string `json:"tls_cert_file"`
 	TLSKeyFile      string `json:"tls_key_file"`
 	TLSClientCAFile string `json:"tls_client_ca_file"`
+	// InsecureListen allows a non-loopback Listen without TLS; the daemon
+	// logs a warning on every start.
+	InsecureListen bool `json:"insecure_listen"`
+	// ControllerIdentities are the client certificate identities (URI or
+	// DNS subject alternative names) that may command: Drive, LoadCue,
+	// ArmCue, Start, Stop, ResetFault. WatcherIdentities may read status
+	// and list cues ("*": any client whose certificate verifies). Both
+	// need TLSClientCAFile. See AuthzPolicy.
+	ControllerIdentities []string `json:"controller_identity"`
+	WatcherIdentities    []string `json:"watcher_identity"`
+	// ProbeListen serves the health service alone, in plaintext, for
+	// orchestrators' gRPC probes (which cannot speak TLS), host:port;
+	// empty (the default) turns it off.
+	ProbeListen string `json:"probe_listen"`
 }
 
 // DefaultListen is where tautlined listens unless told otherwise.
@@ -132,6 +148,8 @@ func DefaultConfig() Config {
 		ReseedToleranceRad:    0.05,
 		WatchMinIntervalS:     0.1,
 		ShutdownGraceS:        5,
+		MetricsListen:         DefaultMetricsListen,
+		ProbeListen:           DefaultProbeListen,
 	}
 }
 
@@ -173,7 +191,11 @@ func (c *Config) options() []option {
 		{"shutdown-grace-s", "time a graceful stop may take before the server stops hard, s", &c.ShutdownGraceS},
 		{"tls-cert-file", "server certificate (PEM)", &c.TLSCertFile},
 		{"tls-key-file", "server private key (PEM)", &c.TLSKeyFile},
-		{"tls-client-ca-file", "CA bundle (PEM) that client certificates must chain to", &c.TLSClientCAFile},
+		{"tls-client-ca-file", "CA bundle (PEM) that client certificates must chain to; turns on mutual TLS and authorisation by -controller-identity and -watcher-identity", &c.TLSClientCAFile},
+		{"insecure-listen", "allow a non-loopback -listen without TLS (anyone who reaches the port can command the arms; logged at warn)", &c.InsecureListen},
+		{"controller-identity", "client certificate identity (URI or DNS subject alternative name) that may command the cell; repeat the flag, or comma-separate in the environment, for several", &c.ControllerIdentities},
+		{"watcher-identity", "client certificate identity that may watch status and list cues (* for any client whose certificate verifies); repeatable like -controller-identity", &c.WatcherIdentities},
+		{"probe-listen", "address for a plaintext, health-only gRPC listener for orchestrator probes, host:port (empty: off)", &c.ProbeListen},
 	}
 }
 
@@ -355,20 +377,22 @@ func (c *Config) Validate() error {
 	bad := func(name, format string, args ...any) {
 		errs = append(errs, fmt.Errorf("-%s: %s", name, fmt.Sprintf(format, args...)))
 	}
-	host, port, err := net.SplitHostPort(c.Listen)
+	_, port, err := net.SplitHostPort(c.Listen)
 	if err != nil {
 		bad("listen", "%q is not host:port (%v)", c.Listen, err)
 	} else {
 		if _, err := strconv.ParseUint(port, 10, 16); err != nil {
 			bad("listen", "port %q is not a number from 0 to 65535", port)
 		}
-		tlsSet := c.TLSCertFile != "" || c.TLSKeyFile != "" || c.TLSClientCAFile != ""
-		tlsAll := c.TLSCertFile != "" && c.TLSKeyFile != "" && c.TLSClientCAFile != ""
-		if tlsSet && !tlsAll {
-			bad("tls-cert-file", "give -tls-cert-file, -tls-key-file and -tls-client-ca-file together, or none")
-		}
-		if !isLoopback(host) && !tlsAll {
-			bad("listen", "%q is not a loopback address; serving a robot cell beyond this machine needs TLS with client certificates (-tls-cert-file, -tls-key-file, -tls-client-ca-file)", c.Listen)
+	}
+	if err := CheckSecurityConfig(c.Security()); err != nil {
+		errs = append(errs, err)
+	}
+	if c.ProbeListen != "" {
+		if _, _, err := net.SplitHostPort(c.ProbeListen); err != nil {
+			bad("probe-listen", "%q is not host:port (%v)", c.ProbeListen, err)
+		} else if c.ProbeListen == c.Listen || c.ProbeListen == c.MetricsListen {
+			bad("probe-listen", "%q is also -listen or -metrics-listen; give it its own port", c.ProbeListen)
 		}
 	}
 	if len(c.Cells) == 0 {
@@ -450,12 +474,14 @@ func (c *Config) Validate() error {
 	return errors.Join(errs...)
 }
 
-func isLoopback(host string) bool {
-	if host == "localhost" {
-		return true
+// Security is the part of c that NewSecurity and CheckSecurityConfig take.
+func (c *Config) Security() SecurityConfig {
+	return SecurityConfig{
+		Listen:         c.Listen,
+		TLS:            TLSFiles{CertFile: c.TLSCertFile, KeyFile: c.TLSKeyFile, ClientCAFile: c.TLSClientCAFile},
+		InsecureListen: c.InsecureListen,
+		Authz:          AuthzPolicy{Controllers: c.ControllerIdentities, Watchers: c.WatcherIdentities},
 	}
-	ip := net.ParseIP(host)
-	return ip != nil && ip.IsLoopback()
 }
 
 // Seconds converts a float number of seconds to a time.Duration.

@@ -58,6 +58,7 @@ func TestValidateNamesEachBadOption(t *testing.T) {
 	cfg.Cells = []string{"cell.json"}
 	cfg.Listen = "0.0.0.0:7461"
 	cfg.TLSCertFile, cfg.TLSKeyFile, cfg.TLSClientCAFile = "c.pem", "k.pem", "ca.pem"
+	cfg.ControllerIdentities = []string{"controller.example"}
 	if err := cfg.Validate(); err != nil {
 		t.Fatalf("non-loopback with TLS: %v", err)
 	}

@@ -2,8 +2,6 @@ package server
 
 import (
 	"context"
-	"crypto/tls"
-	"crypto/x509"
 	"errors"
 	"fmt"
 	"net"
@@ -15,7 +13,6 @@ import (
 	"go.uber.org/zap"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/credentials"
 	"google.golang.org/grpc/health"
 	healthpb "google.golang.org/grpc/health/grpc_health_v1"
 	"google.golang.org/grpc/reflection"
@@ -75,17 +72,15 @@ func New(cfg Config, logger *zap.Logger) (*Server, error) {
 			zap.Int("joints", cell.NumJoints()), zap.Int("markers", len(cell.Markers)), zap.Float64("tick_s", cell.TickS))
 	}
 
+	sec, err := NewSecurity(cfg.Security(), logger, s.metrics)
+	if err != nil {
+		return nil, err
+	}
 	opts := []grpc.ServerOption{
 		grpc.ChainUnaryInterceptor(s.logUnary),
 		grpc.ChainStreamInterceptor(s.logStream),
 	}
-	if cfg.TLSCertFile != "" {
-		creds, err := serverTLS(cfg)
-		if err != nil {
-			return nil, err
-		}
-		opts = append(opts, grpc.Creds(creds))
-	}
+	opts = append(opts, sec.ServerOptions()...) // TLS; authorisation runs inside the call log
 	s.grpc = grpc.NewServer(opts...)
 	pb.RegisterCellControlServer(s.grpc, s)
 	s.health = health.NewServer()
@@ -94,29 +89,6 @@ func New(cfg Config, logger *zap.Logger) (*Server, error) {
 	healthpb.RegisterHealthServer(s.grpc, s.health)
 	reflection.Register(s.grpc)
 	return s, nil
-}
-
-// serverTLS loads the server's key pair and requires client certificates
-// that chain to the configured CA.
-func serverTLS(cfg Config) (credentials.TransportCredentials, error) {
-	cert, err := tls.LoadX509KeyPair(cfg.TLSCertFile, cfg.TLSKeyFile)
-	if err != nil {
-		return nil, fmt.Errorf("-tls-cert-file/-tls-key-file: %w", err)
-	}
-	caPEM, err := os.ReadFile(cfg.TLSClientCAFile)
-	if err != nil {
-		return nil, fmt.Errorf("-tls-client-ca-file: %w", err)
-	}
-	pool := x509.NewCertPool()
-	if !pool.AppendCertsFromPEM(caPEM) {
-		return nil, fmt.Errorf("-tls-client-ca-file %s: no PEM certificate in it", cfg.TLSClientCAFile)
-	}
-	return credentials.NewTLS(&tls.Config{
-		Certificates: []tls.Certificate{cert},
-		ClientAuth:   tls.RequireAndVerifyClientCert,
-		ClientCAs:    pool,
-		MinVersion:   tls.VersionTLS13,
-	}), nil
 }
 
 // Serve serves on lis until Shutdown. It returns nil after Shutdown.

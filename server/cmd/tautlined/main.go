@@ -124,6 +124,17 @@ func run(args []string, getenv func(string) string, stderr io.Writer) int {
 		log.Info("serving metrics", zap.String("address", ml.Addr().String()), zap.String("path", server.MetricsPath))
 		go metricsSrv.Serve(ml)
 	}
+	if cfg.ProbeListen != "" {
+		pl, err := net.Listen("tcp", cfg.ProbeListen)
+		if err != nil {
+			log.Error("cannot listen for probes", zap.String("address", cfg.ProbeListen), zap.Error(err))
+			srv.Shutdown(context.Background())
+			<-serveErr
+			return 1
+		}
+		log.Info("serving health in plaintext for probes", zap.String("address", pl.Addr().String()))
+		go srv.ServeProbe(pl) // ends with Shutdown
+	}
 
 	sig := make(chan os.Signal, 1)
 	signal.Notify(sig, syscall.SIGINT, syscall.SIGTERM)
