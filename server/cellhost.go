@@ -137,6 +137,7 @@ func (h *cellHost) arm(cueName string) (*pb.CellStatus, error) {
 		return nil, status.Errorf(codes.Unavailable, "cannot record the session (every session is recorded): %v", err)
 	}
 	a.rec = rec
+	rec.metrics = h.eng.metrics
 
 	h.mu.Lock()
 	defer h.mu.Unlock()

@@ -24,7 +24,7 @@ cleanup() {
 trap cleanup EXIT INT TERM
 
 $GO build -o "$work/tautlined" ./server/cmd/tautlined
-"$work/tautlined" -listen 127.0.0.1:0 -cell testdata/demo/cell.json -capture-dir "$work/captures" 2>"$work/log" &
+"$work/tautlined" -listen 127.0.0.1:0 -metrics-listen 127.0.0.1:0 -cell testdata/demo/cell.json -capture-dir "$work/captures" 2>"$work/log" &
 pid=$!
 
 addr=

@@ -30,6 +30,9 @@ type recorder struct {
 	obsKind pb.Record_Observation
 	cmdKind pb.Record_Command
 	failed  bool
+
+	metrics   *CellMetrics // nil: none
+	lastBytes int64        // capture bytes already counted in metrics
 }
 
 // recorderVersion names the program in SessionStart.recorder.
@@ -120,6 +123,11 @@ func (r *recorder) write(rec *pb.Record) {
 		}
 		r.log.Warn("capture record refused", zap.String("capture", r.path), zap.Error(err))
 	}
+	if r.metrics != nil {
+		b := r.w.Stats().Bytes
+		r.metrics.CaptureWritten(int(b - r.lastBytes))
+		r.lastBytes = b
+	}
 }
 
 // observation records a received observation as it came, accepted or not.
@@ -149,5 +157,8 @@ func (r *recorder) close(reason string, ticks uint64) error {
 		Reason:    reason,
 		Ticks:     ticks,
 	}}})
-	return r.w.Close()
+	start := time.Now()
+	err := r.w.Close()
+	r.metrics.CaptureFlushed(time.Since(start).Seconds())
+	return err
 }
