@@ -193,6 +193,22 @@ func (l *cellLoader) checkPlanner(p *PlannerDefaults) {
 	nonNeg("position_margin", p.PositionMargin)
 }
 
+// newName checks an arm or bar name: non-empty, no dots or spaces (it is
+// part of joint and bar-point names), not seen before. It records the name
+// and reports whether it is usable.
+func (l *cellLoader) newName(field, kind, name string, seen map[string]bool) bool {
+	switch {
+	case name == "" || strings.ContainsAny(name, ". \t"):
+		l.errf(field, "must be a non-empty name without dots or spaces, got %q", name)
+		return false
+	case seen[name]:
+		l.errf(field, "%s %q is defined twice", kind, name)
+		return false
+	}
+	seen[name] = true
+	return true
+}
+
 func (l *cellLoader) buildArms(c *Cell, cf *cellFile) {
 	if len(cf.Arms) == 0 {
 		l.errf("arms", "the cell has no arms")
@@ -200,15 +216,9 @@ func (l *cellLoader) buildArms(c *Cell, cf *cellFile) {
 	seen := map[string]bool{}
 	for i, af := range cf.Arms {
 		at := fmt.Sprintf("arms[%d]", i)
-		if af.Name == "" || strings.ContainsAny(af.Name, ". \t") {
-			l.errf(at+".name", "must be a non-empty name without dots or spaces, got %q", af.Name)
+		if !l.newName(at+".name", "arm", af.Name, seen) {
 			continue
 		}
-		if seen[af.Name] {
-			l.errf(at+".name", "arm %q is defined twice", af.Name)
-			continue
-		}
-		seen[af.Name] = true
 		if af.URDF == "" {
 			l.errf(at+".urdf", "is missing: name the arm's URDF file")
 			continue
@@ -359,15 +369,9 @@ func (l *cellLoader) buildBars(c *Cell, cf *cellFile) {
 	seen := map[string]bool{}
 	for i, bf := range cf.Bars {
 		at := fmt.Sprintf("bars[%d]", i)
-		if bf.Name == "" || strings.ContainsAny(bf.Name, ". \t") {
-			l.errf(at+".name", "must be a non-empty name without dots or spaces, got %q", bf.Name)
+		if !l.newName(at+".name", "bar", bf.Name, seen) {
 			continue
 		}
-		if seen[bf.Name] {
-			l.errf(at+".name", "bar %q is defined twice", bf.Name)
-			continue
-		}
-		seen[bf.Name] = true
 		ai := l.armIndex(bf.Arm)
 		if ai < 0 {
 			l.errf(at+".arm", "no arm named %q", bf.Arm)
