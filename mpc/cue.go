@@ -116,23 +116,12 @@ func ParseCue(file string, data []byte, joints []CueJoint, s CueSettings) (*Cue,
 	if err != nil {
 		return nil, err
 	}
-	if len(tt.rows) < 2 {
-		line := tt.headerLine
-		if len(tt.rows) == 1 {
-			line = tt.rows[0].line
-		}
-		return nil, sim.FileErrors{{File: file, Line: line, Msg: fmt.Sprintf("the cue has %d row(s); it needs at least 2 (two rows give one rest-to-rest motion)", len(tt.rows))}}
+	if err := tt.atLeastTwoRows(file, "the cue", " (two rows give one rest-to-rest motion)"); err != nil {
+		return nil, err
 	}
 
-	n, nj := len(tt.rows), len(joints)
-	knots := make([]float64, n)
-	values := make([]float64, n*nj)
-	for i, r := range tt.rows {
-		knots[i] = r.values[0]
-		for j := range joints {
-			values[i*nj+j] = r.values[order[j]]
-		}
-	}
+	nj := len(joints)
+	knots, values := tt.knotsAndValues(order)
 	sp, err := fitClampedSpline(knots, values, nj, nil, nil)
 	if err != nil {
 		return nil, sim.FileErrors{{File: file, Line: tt.rows[0].line, Msg: err.Error()}}

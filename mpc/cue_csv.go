@@ -274,3 +274,32 @@ func (tt *timeTable) rowBefore(t float64) int {
 	}
 	return i
 }
+
+// atLeastTwoRows reports a table with fewer than two rows, on the header
+// line or the only row; what says what the rows are ("the cue") and hint
+// is appended to the message.
+func (tt *timeTable) atLeastTwoRows(file, what, hint string) error {
+	if len(tt.rows) >= 2 {
+		return nil
+	}
+	line := tt.headerLine
+	if len(tt.rows) == 1 {
+		line = tt.rows[0].line
+	}
+	return sim.FileErrors{{File: file, Line: line, Msg: fmt.Sprintf("%s has %d row(s); it needs at least 2%s", what, len(tt.rows), hint)}}
+}
+
+// knotsAndValues returns the row times and, row-major, each row's values of
+// the columns in order (order[k] is the CSV column of output k).
+func (tt *timeTable) knotsAndValues(order []int) (knots, values []float64) {
+	n, nc := len(tt.rows), len(order)
+	knots = make([]float64, n)
+	values = make([]float64, n*nc)
+	for i, r := range tt.rows {
+		knots[i] = r.values[0]
+		for k, c := range order {
+			values[i*nc+k] = r.values[c]
+		}
+	}
+	return knots, values
+}

@@ -77,22 +77,11 @@ func ParseReference(file string, data []byte, markerIDs []string) (*Reference, e
 	if err != nil {
 		return nil, err
 	}
-	if len(tt.rows) < 2 {
-		line := tt.headerLine
-		if len(tt.rows) == 1 {
-			line = tt.rows[0].line
-		}
-		return nil, sim.FileErrors{{File: file, Line: line, Msg: fmt.Sprintf("the reference has %d row(s); it needs at least 2", len(tt.rows))}}
+	if err := tt.atLeastTwoRows(file, "the reference", ""); err != nil {
+		return nil, err
 	}
-	n, nc := len(tt.rows), len(order)
-	knots := make([]float64, n)
-	values := make([]float64, n*nc)
-	for i, r := range tt.rows {
-		knots[i] = r.values[0]
-		for k, c := range order {
-			values[i*nc+k] = r.values[c]
-		}
-	}
+	nc := len(order)
+	knots, values := tt.knotsAndValues(order)
 	sp, err := fitClampedSpline(knots, values, nc, nil, nil)
 	if err != nil {
 		return nil, sim.FileErrors{{File: file, Line: tt.rows[0].line, Msg: err.Error()}}
