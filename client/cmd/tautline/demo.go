@@ -17,7 +17,6 @@ import (
 	"gonum.org/v1/plot/vg"
 
 	"tautline/client"
-	"tautline/server"
 )
 
 func init() {
@@ -242,11 +241,7 @@ func demo(ctx context.Context, f *demoFlags, stdout io.Writer) (*demoSummary, er
 // history) and differ only in whether the corrections are applied.
 func demoRun1(ctx context.Context, f *demoFlags, in *simInputs, open bool, daemonDir string, stdout io.Writer) (*client.SimResult, error) {
 	mode := modeName(open)
-	dm, err := startDaemon(f.cell, daemonDir, func(cfg *server.Config) {
-		if f.prepareBudgetS > 0 {
-			cfg.PrepareBudgetS = f.prepareBudgetS
-		}
-	})
+	dm, err := startDaemon(f.cell, daemonDir, withPrepareBudget(f.prepareBudgetS))
 	if err != nil {
 		return nil, err
 	}

@@ -10,7 +10,6 @@ import (
 
 	"tautline/client"
 	"tautline/mpc"
-	"tautline/server"
 	"tautline/sim"
 )
 
@@ -91,11 +90,7 @@ func compareClosedLoop(ctx context.Context, nominalPath, fittedPath, cuePath, pr
 // closedLoopWith runs the simulated cell (nominal cell, profile) closed
 // loop against an in-process daemon serving cellPath.
 func closedLoopWith(ctx context.Context, cellPath string, in *simInputs, capPath string, durationS, prepareBudgetS float64, label string, stdout io.Writer) (*client.SimResult, error) {
-	dm, err := startDaemon(cellPath, "", func(cfg *server.Config) {
-		if prepareBudgetS > 0 {
-			cfg.PrepareBudgetS = prepareBudgetS
-		}
-	})
+	dm, err := startDaemon(cellPath, "", withPrepareBudget(prepareBudgetS))
 	if err != nil {
 		return nil, err
 	}

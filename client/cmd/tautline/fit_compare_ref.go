@@ -11,7 +11,6 @@ import (
 	"tautline/client"
 	"tautline/mpc"
 	pb "tautline/proto/tautline/v1"
-	"tautline/server"
 	"tautline/sim"
 )
 
@@ -48,11 +47,7 @@ func referenceCSV(cell *sim.Cell, ref *mpc.Nominal, startS, endS float64) []byte
 // figure error against that reference (the demo's figure error), m.
 func closedLoopNominalReference(ctx context.Context, cellPath string, in *simInputs, ref *mpc.Nominal, durationS, prepareBudgetS float64) (float64, error) {
 	cell, cue := in.cell, in.cue
-	dm, err := startDaemon(cellPath, "", func(cfg *server.Config) {
-		if prepareBudgetS > 0 {
-			cfg.PrepareBudgetS = prepareBudgetS
-		}
-	})
+	dm, err := startDaemon(cellPath, "", withPrepareBudget(prepareBudgetS))
 	if err != nil {
 		return 0, err
 	}

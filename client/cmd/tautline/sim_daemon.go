@@ -88,6 +88,16 @@ type inProcessDaemon struct {
 // startDaemon serves cellPath on 127.0.0.1 at a free port with the default
 // configuration (quiet logs) except a 2 s stall timeout, captures in captureDir or a temporary
 // directory. tweak, if not nil, edits the configuration first.
+// withPrepareBudget sets the daemon's prepare budget when s > 0 (0 keeps
+// the daemon's default).
+func withPrepareBudget(s float64) func(*server.Config) {
+	return func(cfg *server.Config) {
+		if s > 0 {
+			cfg.PrepareBudgetS = s
+		}
+	}
+}
+
 func startDaemon(cellPath, captureDir string, tweak func(*server.Config)) (*inProcessDaemon, error) {
 	cfg := server.DefaultConfig()
 	cfg.Cells = []string{cellPath}
